@@ -1,0 +1,2 @@
+export { errorCatalogue, TrueshiftError, isTrueshiftError } from './catalogue.js';
+export type { ErrorCode, ErrorBody } from './catalogue.js';

@@ -1,0 +1,22 @@
+import { fileURLToPath } from 'node:url';
+import { defineConfig } from 'vitest/config';
+
+const src = (path: string): string => fileURLToPath(new URL(path, import.meta.url));
+
+export default defineConfig({
+  resolve: {
+    // Tests run against the TypeScript sources, so no build is needed before `vitest`.
+    alias: {
+      '@trueshift/errors': src('./packages/errors/src/index.ts'),
+      '@trueshift/formats': src('./packages/formats/src/index.ts'),
+      '@trueshift/stats': src('./packages/stats/src/index.ts'),
+      '@trueshift/store': src('./packages/store/src/index.ts'),
+      '@trueshift/store-sqlite': src('./services/store-sqlite/src/index.ts'),
+    },
+  },
+  test: {
+    include: ['packages/*/src/**/*.test.ts', 'services/*/src/**/*.test.ts', 'test/**/*.test.ts'],
+    testTimeout: 20_000,
+    hookTimeout: 30_000,
+  },
+});
