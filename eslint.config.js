@@ -35,4 +35,32 @@ export default tseslint.config(
       globals: { process: 'readonly', console: 'readonly' },
     },
   },
+  {
+    // The page's plain ES modules run in the browser, not in Node.js.
+    files: ['services/web/assets/**/*.js'],
+    languageOptions: {
+      globals: Object.fromEntries(
+        [
+          'window',
+          'document',
+          'location',
+          'history',
+          'sessionStorage',
+          'fetch',
+          'URL',
+          'URLSearchParams',
+          'FormData',
+          'Blob',
+          'Node',
+          'Element',
+          'AbortController',
+          'TextDecoderStream',
+          'ResizeObserver',
+          'setTimeout',
+          'clearTimeout',
+          'console',
+        ].map((name) => [name, 'readonly']),
+      ),
+    },
+  },
 );

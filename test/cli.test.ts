@@ -23,7 +23,7 @@ async function run(argv: string[]): Promise<{ code: number; out: string; err: st
     stdout: (text) => (out += text),
     stderr: (text) => (err += text),
   };
-  const code = await runCli(argv, io);
+  const code = await runCli(argv, { io });
   return { code, out, err };
 }
 

@@ -22,6 +22,26 @@ export const errorCatalogue = {
   TIME_UNREADABLE: { status: 400, message: 'The sample time cannot be read.' },
   TIME_IN_FUTURE: { status: 400, message: 'The sample time lies too far in the future.' },
   QUALITY_INVALID: { status: 400, message: 'The sample quality is not a valid quality code.' },
+  SPARKPLUG_DECODE: {
+    status: 400,
+    message: 'The Sparkplug B message cannot be decoded.',
+  },
+  SPARKPLUG_INVALID: {
+    status: 400,
+    message: 'The Sparkplug B message breaks the Sparkplug specification.',
+  },
+  SPARKPLUG_UNKNOWN_ALIAS: {
+    status: 400,
+    message: "The Sparkplug metric was not announced in the edge node's or device's BIRTH.",
+  },
+  SPARKPLUG_NO_BIRTH: {
+    status: 409,
+    message: 'Sparkplug DATA arrived without a current BIRTH, so its metrics are unknown.',
+  },
+  SPARKPLUG_VALUE_RANGE: {
+    status: 400,
+    message: 'A 64-bit integer in the Sparkplug message lies beyond 2^53, past exact numbers.',
+  },
   CHANGE_NOT_IN_DATA: {
     status: 400,
     message: 'The moment of the change does not fall inside the data.',
@@ -39,6 +59,38 @@ export const errorCatalogue = {
   MARK_WITHDRAWN: { status: 409, message: 'The mark has been withdrawn and can no longer change.' },
   ALERT_NOT_FOUND: { status: 404, message: 'There is no alert with this id.' },
   ALERT_CLEARED: { status: 409, message: 'The alert has been cleared and can no longer change.' },
+  NO_USABLE_SAMPLES: {
+    status: 400,
+    message: 'Nothing in the request could be stored: every sample in it was rejected.',
+  },
+  CONTENT_TYPE_UNSUPPORTED: {
+    status: 415,
+    message: 'The request body must be JSON, sent as Content-Type: application/json.',
+  },
+  STORE_UNAVAILABLE: {
+    status: 503,
+    message: 'The store could not take the samples; nothing was acknowledged, so send them again.',
+  },
+  REQUEST_INVALID: {
+    status: 400,
+    message: 'The request does not match what this route accepts.',
+  },
+  UNAUTHORIZED: {
+    status: 401,
+    message: 'A valid token is needed: send it as Authorization: Bearer <token>.',
+  },
+  FORBIDDEN: { status: 403, message: 'The token does not carry the scope this route needs.' },
+  NOT_FOUND: { status: 404, message: 'There is no such route or resource.' },
+  TAG_NOT_FOUND: { status: 404, message: 'There is no tag with this name.' },
+  TOKEN_NOT_FOUND: { status: 404, message: 'There is no token with this id.' },
+  EVIDENCE_NOT_FOUND: {
+    status: 404,
+    message: 'There is no evidence for this mark and tag yet.',
+  },
+  RATE_LIMITED: {
+    status: 429,
+    message: 'Too many write requests; wait before sending more.',
+  },
   CONFIG_INVALID: { status: 500, message: 'The configuration is not valid.' },
   INTERNAL: { status: 500, message: 'An unexpected internal error occurred.' },
 } as const satisfies Record<string, { status: number; message: string }>;

@@ -172,10 +172,18 @@ describe('parseMqttMessage on arbitrary payloads', () => {
 
 describe('createDropCsvReader on arbitrary text', () => {
   const dropCtx = { ...base, fileName: 'fuzz.csv', validRange: ranges };
+  // fc.anything() can yield objects without a prototype, which String() cannot convert.
+  const asCell = (value: unknown): string => {
+    try {
+      return String(value);
+    } catch {
+      return '[object]';
+    }
+  };
   const cell = fc.oneof(
     texts,
-    times.map(String),
-    values.map(String),
+    times.map(asCell),
+    values.map(asCell),
     fc.constantFrom('FI-101', 'time', 'tag', 'value', 'quality', 'null', '192', ''),
   );
   const lineOf = (delimiter: string) =>

@@ -30,4 +30,7 @@ export type {
   TagKind,
   TagRecord,
   TagSettings,
+  TokenInput,
+  TokenRecord,
+  TokenScope,
 } from './types.js';

@@ -250,6 +250,23 @@ export interface AnalyserStateRecord {
   updatedAt: number;
 }
 
+/** What an API token lets its holder do: admin covers write, write covers read. */
+export type TokenScope = 'read' | 'write' | 'admin';
+
+export interface TokenInput {
+  id: string;
+  /** Who or what holds it, for people reading the list; need not be unique. */
+  name: string;
+  /** Hex SHA-256 of the secret: the secret itself is never stored. */
+  hash: string;
+  scopes: TokenScope[];
+  createdAt: number;
+}
+
+export interface TokenRecord extends TokenInput {
+  revokedAt: number | null;
+}
+
 export interface FileRecord {
   hash: string;
   name: string;
@@ -344,4 +361,15 @@ export interface Store {
 
   /** Records a file by content hash; false when that content was taken before. */
   recordFile(file: FileRecord): Promise<boolean>;
+
+  /** Outbox entries in each state. */
+  countOutbox(): Promise<Record<OutboxState, number>>;
+
+  createToken(token: TokenInput): Promise<TokenRecord>;
+  /** The token with this hash, revoked or not; null when there is none. */
+  findTokenByHash(hash: string): Promise<TokenRecord | null>;
+  /** Every token, revoked ones included, oldest first. */
+  listTokens(): Promise<TokenRecord[]>;
+  /** Revokes the token; revoking it again keeps the first time. Throws TOKEN_NOT_FOUND. */
+  revokeToken(id: string, now: number): Promise<TokenRecord>;
 }

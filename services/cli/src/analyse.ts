@@ -2,10 +2,14 @@ import { parseArgs } from 'node:util';
 import { TrueshiftError } from '@trueshift/errors';
 import { locateChange, parseHistoryCsv } from '@trueshift/formats';
 import type { HistoryTable } from '@trueshift/formats';
+import { readEvidence } from '@trueshift/report';
 import { computeEvidence } from '@trueshift/stats';
 import type { Direction, Evidence, EvidenceInput, SigmaMethod } from '@trueshift/stats';
 import { CAUTION } from './caution.js';
-import { num, percent, pText, table } from './format.js';
+import { evidenceRows, signalTimes } from './evidence-rows.js';
+import type { SignalTimes } from './evidence-rows.js';
+import { percent, table } from './format.js';
+import { numberOption, positive, positiveInteger, riskLevel as isRiskLevel } from './options.js';
 
 export const ANALYSE_HELP = `Usage: trueshift analyse <file.csv> --change <time|row:N> [options]
 
@@ -43,7 +47,7 @@ export interface AnalyseReport {
   skippedRows: HistoryTable['skipped'];
   change: { index: number; time: string; line: number };
   /** File times of the CUSUM and EWMA signals and the estimated change point, when there are any. */
-  times: { cusumSignal: string | null; cusumChangePoint: string | null; ewmaSignal: string | null };
+  times: SignalTimes;
   evidence: Evidence;
   caution: string;
 }
@@ -54,23 +58,6 @@ const SIGMA_METHODS: readonly SigmaMethod[] = [
   'average-moving-range',
   'sample-sd',
 ];
-
-function numberOption(
-  value: string | undefined,
-  name: string,
-  check: (x: number) => boolean,
-  rule: string,
-): number | undefined {
-  if (value === undefined) return undefined;
-  const parsed = Number(value);
-  if (value.trim() === '' || !Number.isFinite(parsed) || !check(parsed)) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `--${name} must be ${rule}; got "${value}".`);
-  }
-  return parsed;
-}
-
-const positiveInteger = (x: number): boolean => Number.isInteger(x) && x >= 1;
-const positive = (x: number): boolean => x > 0;
 
 export interface AnalyseRequest {
   file: string;
@@ -121,8 +108,7 @@ export function parseAnalyseArgs(argv: string[]): AnalyseRequest | 'help' {
   if (!SIGMA_METHODS.includes(sigmaMethod)) {
     throw new TrueshiftError('INVALID_ARGUMENT', `--sigma must be ${SIGMA_METHODS.join(', ')}.`);
   }
-  const riskLevel =
-    numberOption(values.risk, 'risk', (x) => x > 0 && x < 1, 'between 0 and 1') ?? 0.05;
+  const riskLevel = numberOption(values.risk, 'risk', isRiskLevel, 'between 0 and 1') ?? 0.05;
   const settings: AnalyseRequest['settings'] = { direction, riskLevel, sigmaMethod };
   const nBefore = numberOption(values.before, 'before', positiveInteger, 'a whole number ≥ 1');
   if (nBefore !== undefined) settings.nBefore = nBefore;
@@ -158,10 +144,10 @@ export function analyseText(text: string, file: string, request: AnalyseRequest)
     history: history.values.subarray(0, changeIndex),
     after: history.values.subarray(changeIndex),
   });
-  const timeOfAfter = (sample: number | null | undefined): string | null =>
-    sample === null || sample === undefined
-      ? null
-      : (history.times[changeIndex + sample - 1] ?? null);
+  const times = signalTimes(
+    readEvidence(evidence),
+    (sample) => history.times[changeIndex + sample - 1] ?? null,
+  );
   return {
     file,
     tag: history.valueColumn,
@@ -174,110 +160,17 @@ export function analyseText(text: string, file: string, request: AnalyseRequest)
       time: history.times[changeIndex] ?? '',
       line: history.lines[changeIndex] ?? 0,
     },
-    times: {
-      cusumSignal: timeOfAfter(evidence.cusum.signalAt),
-      // The change point is the last sample where the sum was zero; the shift starts after it.
-      cusumChangePoint: timeOfAfter(
-        evidence.cusum.change === null ? null : evidence.cusum.change.changePoint + 1,
-      ),
-      ewmaSignal: timeOfAfter(evidence.ewma.signalAt),
-    },
+    times,
     evidence,
     caution: CAUTION,
   };
 }
 
-const VERDICT_WORDS: Record<Evidence['verdict'], string> = {
-  'not-enough-history': 'NOT ENOUGH HISTORY',
-  'still-gathering': 'STILL GATHERING',
-  'credible-rise': 'CREDIBLE RISE',
-  'credible-fall': 'CREDIBLE FALL',
-  'credible-but-small': 'CREDIBLE BUT SMALLER THAN WORTH HAVING',
-  'no-credible-shift': 'NO CREDIBLE SHIFT',
-};
-
-function describeProjection(projection: Evidence['samplesNeeded']): string {
-  switch (projection.status) {
-    case 'reached':
-      return `none: ${projection.nAfter} after-samples are enough for this shift`;
-    case 'reachable':
-      return `${projection.more} more (an after-window of ${projection.nAfter})`;
-    case 'not-reachable':
-      return `not reachable with this history: ${projection.reason}`;
-  }
-}
-
 export function renderReport(report: AnalyseReport): string {
   const e = report.evidence;
-  const ref = e.reference;
-  const rows: [string, string][] = [];
-  rows.push([
-    'Before the change',
-    `last ${e.nBefore} of ${e.nHistory} history samples: mean ${num(e.before.mean)}, SD ${num(e.before.sd)}`,
-  ]);
-  rows.push([
-    'After the change',
-    `first ${e.nAfter} samples: mean ${num(e.after.mean)}, SD ${num(e.after.sd)}${e.nAfterUnused > 0 ? ` (${e.nAfterUnused} later samples beyond the cap are not used)` : ''}`,
-  ]);
-  const ci =
-    e.welch === null
-      ? ''
-      : ` (${num(e.welch.confidence * 100, 3)}% CI ${num(e.welch.ci.lower)} to ${num(e.welch.ci.upper)})`;
-  rows.push(['Observed shift', `${num(e.observedShift)} (after − before)${ci}`]);
-  if (ref.status === 'ok') {
-    rows.push([
-      'Reference risk',
-      `${ref.countAtLeast === 0 ? `below ${percent(1 / ref.m)}` : percent(ref.risk)}: ${ref.countAtLeast} of ${ref.m} historical differences of the same windows are at least as ${e.direction === 'either' ? 'large' : e.direction === 'rise' ? 'high' : 'low'} (rise ${percent(ref.riskRise)}, fall ${percent(ref.riskFall)}, either ${percent(ref.riskEither)})`,
-    ]);
-  } else {
-    rows.push(['Reference risk', ref.message]);
-  }
-  if (e.welch !== null) {
-    const p =
-      e.direction === 'rise'
-        ? e.welch.pRise
-        : e.direction === 'fall'
-          ? e.welch.pFall
-          : e.welch.pTwoSided;
-    rows.push([
-      "Welch's t test",
-      `t = ${num(e.welch.t)}, df = ${num(e.welch.df)}, ${e.direction === 'either' ? 'two-sided' : 'one-sided'} ${pText(p)}`,
-    ]);
-  }
-  const ac = e.autocorrelation;
-  rows.push([
-    'Autocorrelation',
-    `lag-1 r1 = ${num(ac.r1, 3)} (limit ±${num(ac.limit, 3)})${ac.flagged ? `: ${ac.note}` : ': no sign of dependence between neighbouring samples'}`,
-  ]);
-  if (e.welchEffective !== null) {
-    const w = e.welchEffective;
-    const p = e.direction === 'rise' ? w.pRise : e.direction === 'fall' ? w.pFall : w.pTwoSided;
-    rows.push([
-      'Welch, effective n',
-      `t = ${num(w.t)}, df = ${num(w.df)}, ${pText(p)} with effective sizes ${num(w.effectiveSizes?.before ?? Number.NaN, 3)} and ${num(w.effectiveSizes?.after ?? Number.NaN, 3)}`,
-    ]);
-  }
-  rows.push([
-    'Baseline',
-    `mean ${num(e.baseline.mean)}, sigma ${num(e.baseline.sigma)} (${e.baseline.sigmaMethod}); SD ${num(e.baseline.sampleSd)}`,
-  ]);
-  const cusumText =
-    e.cusum.signalAt === null
-      ? `no signal (upper ${num(e.cusum.upper, 3)}, lower ${num(e.cusum.lower, 3)} of h = ${num(e.cusum.h)})`
-      : `${e.cusum.signal ?? 'a'} side signalled at after-sample ${e.cusum.signalAt}${report.times.cusumSignal === null ? '' : ` (${report.times.cusumSignal})`}${e.cusum.change === null ? '' : `; shift estimated to start at after-sample ${e.cusum.change.changePoint + 1}${report.times.cusumChangePoint === null ? '' : ` (${report.times.cusumChangePoint})`}, new mean ≈ ${num(e.cusum.change.estimatedMean)}`}`;
-  rows.push([`CUSUM (k ${num(e.cusum.k)}, h ${num(e.cusum.h)})`, cusumText]);
-  rows.push([
-    `EWMA (λ ${num(e.ewma.lambda)}, L ${num(e.ewma.L)})`,
-    e.ewma.signalAt === null
-      ? `no signal (z = ${num(e.ewma.z)} within ${num(e.ewma.lower)} to ${num(e.ewma.upper)})`
-      : `signalled at after-sample ${e.ewma.signalAt}${report.times.ewmaSignal === null ? '' : ` (${report.times.ewmaSignal})`}; z is now ${num(e.ewma.z)}, ${e.ewma.signal === null ? 'back within' : e.ewma.signal === 'lower' ? 'below' : 'above'} ${num(e.ewma.lower)} to ${num(e.ewma.upper)}`,
-  ]);
-  rows.push(['Samples still needed', describeProjection(e.samplesNeeded)]);
-  if (e.samplesNeededForSmallest !== null) {
-    rows.push(['  for smallest shift', describeProjection(e.samplesNeededForSmallest)]);
-  }
-  rows.push(['Verdict', `${VERDICT_WORDS[e.verdict]}: ${e.verdictText}`]);
-
+  const view = readEvidence(e);
+  const rows: [string, string][] =
+    view === null ? [['Verdict', e.verdictText]] : evidenceRows(view, report.times);
   const header = [
     `trueshift evidence for "${report.tag}" in ${report.file}`,
     `${report.samples} samples; change at ${report.change.time} (line ${report.change.line}); expected direction ${e.direction}; risk level ${percent(e.riskLevel)}`,

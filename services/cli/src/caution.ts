@@ -1,6 +1,2 @@
-/**
- * Printed on every report: a change judged on statistics alone can still hurt people or plant.
- */
-export const CAUTION =
-  'Caution: statistical evidence does not replace management-of-change review, hazard analysis, ' +
-  'local codes or licensed engineering practice. trueshift alerts are advisory and are not a safety function.';
+// The text lives in @trueshift/config so the API and the command line print the same words.
+export { CAUTION } from '@trueshift/config';

@@ -1,47 +1,68 @@
-import { mkdir, readFile, writeFile } from 'node:fs/promises';
-import { join, resolve } from 'node:path';
-import { parseArgs } from 'node:util';
+import { userInfo } from 'node:os';
 import { isTrueshiftError, TrueshiftError } from '@trueshift/errors';
 import { analyseText, ANALYSE_HELP, parseAnalyseArgs, renderReport } from './analyse.js';
-import { demoPlant } from './demo-plant.js';
-
-/** What the command line touches, passed in so tests can run it without a process of its own. */
-export interface CliIo {
-  stdout: (text: string) => void;
-  stderr: (text: string) => void;
-  readText: (path: string) => Promise<string>;
-  writeText: (path: string, text: string) => Promise<void>;
-}
-
-export const processIo: CliIo = {
-  stdout: (text) => process.stdout.write(text),
-  stderr: (text) => process.stderr.write(text),
-  readText: (path) => readFile(path, 'utf8'),
-  writeText: async (path, text) => {
-    await mkdir(resolve(path, '..'), { recursive: true });
-    await writeFile(path, text, 'utf8');
-  },
-};
-
-/** Exit codes scripts can rely on. */
-export const EXIT = { ok: 0, unexpected: 1, usage: 2, badInput: 3 } as const;
+import { ACK_HELP, ackCommand, ALERTS_HELP, alertsCommand } from './commands/alerts.js';
+import { DEMO_HELP, demoCommand } from './commands/demo.js';
+import { EVIDENCE_HELP, evidenceCommand } from './commands/evidence.js';
+import { IMPORT_HELP, importCommand } from './commands/import.js';
+import { MARK_HELP, markCommand, WITHDRAW_HELP, withdrawCommand } from './commands/marks.js';
+import { REPORT_HELP, reportCommand } from './commands/report.js';
+import {
+  CHECK_HELP,
+  checkCommand,
+  processStopSignal,
+  START_HELP,
+  startCommand,
+  TOKEN_HELP,
+  tokenCommand,
+} from './commands/service.js';
+import type { StopSignal } from './commands/service.js';
+import { EXIT, exitCodeOf, processIo } from './io.js';
+import type { CliIo, ExitCode } from './io.js';
 
 const HELP = `Usage: trueshift <command> [options]
 
-Commands:
-  analyse <file.csv> --change <when>   the evidence for one tag's change, from a history file
-  demo [--out <dir>]                   write the demo plant's history files and analyse them
-  help [command]                       this text, or a command's own
+Run the service:
+  start [--config <file>]                  ingest, analyser, alerts, API and page in one process
+  check [--config <file>]                  validate the configuration and list every problem
+  token create --name <n> [--scopes]       create an API token (shown once)
+  demo                                     the service on a simulated dairy evaporator, live
+  demo --offline                           the demo plant's history files, analysed offline
 
-Run "trueshift <command> --help" for a command's options.`;
+Work with the store (directly, also while the service runs):
+  import <file.csv>                        a history file into the store, with a progress bar
+  mark --tag <t> --label <text> [--at]     mark a plant change on the tags it should move
+  withdraw <mark-id> --reason <text>       withdraw a mark, saying why
+  evidence <tag> [--mark <id>]             the latest evidence of each active mark on a tag
+  alerts [--state <state>]                 the alerts, newest first
+  ack <alert-id> --note <text>             acknowledge an alert
+  report <mark-id> <tag> [--out <file>]    export the decision report as one HTML file
 
-const DEMO_HELP = `Usage: trueshift demo [--out <dir>] [--json]
+Without the service:
+  analyse <file.csv> --change <when>       the evidence for one tag's change, from a history file
 
-Writes the history files of the demo plant (an invented dairy evaporator: one tag whose level
-really fell after a new cleaning sequence, one whose level did not move) into <dir>
-(default ./data/demo) and prints the evidence for each.`;
+  help [command]                           this text, or a command's own
 
-async function analyse(argv: string[], io: CliIo): Promise<number> {
+Run "trueshift help <command>" or "trueshift <command> --help" for a command's options.
+Exit codes: 0 ok, 1 unexpected error, 2 bad arguments, 3 bad input or configuration, 4 not found.`;
+
+const COMMAND_HELP: Readonly<Record<string, string>> = {
+  start: START_HELP,
+  check: CHECK_HELP,
+  token: TOKEN_HELP,
+  demo: DEMO_HELP,
+  import: IMPORT_HELP,
+  mark: MARK_HELP,
+  withdraw: WITHDRAW_HELP,
+  evidence: EVIDENCE_HELP,
+  alerts: ALERTS_HELP,
+  ack: ACK_HELP,
+  report: REPORT_HELP,
+  analyse: ANALYSE_HELP,
+  analyze: ANALYSE_HELP,
+};
+
+async function analyse(argv: string[], io: CliIo): Promise<ExitCode> {
   const request = parseAnalyseArgs(argv);
   if (request === 'help') {
     io.stdout(`${ANALYSE_HELP}\n`);
@@ -60,46 +81,44 @@ async function analyse(argv: string[], io: CliIo): Promise<number> {
   return EXIT.ok;
 }
 
-async function demo(argv: string[], io: CliIo): Promise<number> {
-  const { values } = parseArgs({
-    args: argv,
-    strict: true,
-    options: {
-      out: { type: 'string' },
-      json: { type: 'boolean' },
-      help: { type: 'boolean', short: 'h' },
-    },
-  });
-  if (values.help === true) {
-    io.stdout(`${DEMO_HELP}\n`);
+function help(rest: readonly string[], io: CliIo): ExitCode {
+  const [topic, ...extra] = rest;
+  if (topic === undefined) {
+    io.stdout(`${HELP}\n`);
     return EXIT.ok;
   }
-  const out = values.out ?? join('data', 'demo');
-  const reports = [];
-  for (const tag of demoPlant()) {
-    const path = join(out, tag.file);
-    await io.writeText(path, tag.csv);
-    const report = analyseText(tag.csv, path, {
-      file: path,
-      json: values.json === true,
-      change: tag.changeTime,
-      parse: { skipBadRows: false },
-      settings: { direction: tag.direction, riskLevel: 0.05, nBefore: tag.nBefore },
-    });
-    reports.push(report);
-    if (values.json !== true) {
-      io.stdout(`${tag.description} (${tag.unit}). In the simulation: ${tag.truth}.\n`);
-      io.stdout(`${renderReport(report)}\n`);
-      io.stdout(
-        `Try it yourself: trueshift analyse ${path} --change ${tag.changeTime} --direction ${tag.direction} --before ${tag.nBefore}\n\n`,
-      );
-    }
+  const text = COMMAND_HELP[topic];
+  if (text === undefined || extra.length > 0) {
+    io.stderr(`trueshift: there is no command "${rest.join(' ')}".\n\n${HELP}\n`);
+    return EXIT.usage;
   }
-  if (values.json === true) io.stdout(`${JSON.stringify(reports, null, 2)}\n`);
+  io.stdout(`${text}\n`);
   return EXIT.ok;
 }
 
-export async function runCli(argv: string[], io: CliIo = processIo): Promise<number> {
+/** Who the OS says runs the command; marks and acknowledgements record it. */
+function osUser(): string {
+  try {
+    return userInfo().username;
+  } catch {
+    // A container user without a passwd entry has no name to give.
+    return `uid-${process.getuid?.() ?? 'unknown'}`;
+  }
+}
+
+export interface CliContext {
+  io: CliIo;
+  clock: () => number;
+  stopSignal: StopSignal;
+  /** The name recorded on marks and acknowledgements when --by is not given. */
+  user: () => string;
+}
+
+export async function runCli(argv: string[], context: Partial<CliContext> = {}): Promise<number> {
+  const io = context.io ?? processIo;
+  const clock = context.clock ?? Date.now;
+  const stopSignal = context.stopSignal ?? processStopSignal;
+  const user = context.user ?? osUser;
   const [command, ...rest] = argv;
   try {
     switch (command) {
@@ -107,15 +126,34 @@ export async function runCli(argv: string[], io: CliIo = processIo): Promise<num
       case 'analyze':
         return await analyse(rest, io);
       case 'demo':
-        return await demo(rest, io);
+        return await demoCommand(rest, io, clock, stopSignal);
+      case 'start':
+        return await startCommand(rest, io, stopSignal);
+      case 'check':
+        return await checkCommand(rest, io);
+      case 'token':
+        return await tokenCommand(rest, io, clock);
+      case 'import':
+        return await importCommand(rest, io, clock);
+      case 'mark':
+        return await markCommand(rest, io, clock, user);
+      case 'withdraw':
+        return await withdrawCommand(rest, io, clock, user);
+      case 'evidence':
+        return await evidenceCommand(rest, io);
+      case 'alerts':
+        return await alertsCommand(rest, io);
+      case 'ack':
+        return await ackCommand(rest, io, clock, user);
+      case 'report':
+        return await reportCommand(rest, io, clock);
       case undefined:
-      case 'help':
       case '--help':
       case '-h':
-        io.stdout(
-          `${rest[0] === 'analyse' ? ANALYSE_HELP : rest[0] === 'demo' ? DEMO_HELP : HELP}\n`,
-        );
+        io.stdout(`${HELP}\n`);
         return EXIT.ok;
+      case 'help':
+        return help(rest, io);
       default:
         io.stderr(`trueshift: unknown command "${command}".\n\n${HELP}\n`);
         return EXIT.usage;
@@ -123,7 +161,7 @@ export async function runCli(argv: string[], io: CliIo = processIo): Promise<num
   } catch (error) {
     if (isTrueshiftError(error)) {
       io.stderr(`trueshift: ${error.code}: ${error.message}\n`);
-      return error.code === 'INVALID_ARGUMENT' ? EXIT.usage : EXIT.badInput;
+      return exitCodeOf(error.code);
     }
     // node:util parseArgs reports unknown or malformed options with these codes.
     const code = (error as { code?: unknown }).code;

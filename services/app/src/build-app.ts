@@ -1,0 +1,232 @@
+import { mkdir } from 'node:fs/promises';
+import { dirname } from 'node:path';
+import { connectAsync } from 'mqtt';
+import type { MqttClient } from 'mqtt';
+import type { Logger } from 'pino';
+import { buildAnalyser } from '@trueshift/analyser-service';
+import type { Analyser } from '@trueshift/analyser-service';
+import { buildApi, listenApi } from '@trueshift/api';
+import type { ResolvedConfig } from '@trueshift/config';
+import { buildDelivery, outboxTargets } from '@trueshift/delivery';
+import type { Delivery } from '@trueshift/delivery';
+import { buildDropFolder, buildMqttIngest, startEmbeddedBroker } from '@trueshift/ingest';
+import { buildSparkplugIngest } from '@trueshift/sparkplug-ingest';
+import type { DropFolder, EmbeddedBroker, MqttIngest } from '@trueshift/ingest';
+import type { Store } from '@trueshift/store';
+import { openSqliteStore } from '@trueshift/store-sqlite';
+import { registerWeb } from '@trueshift/web';
+import type { FastifyInstance } from 'fastify';
+
+export interface AppDeps {
+  config: ResolvedConfig;
+  log: Logger;
+  clock?: () => number;
+  /** Extra routes (e.g. the page) mounted on the API before it listens. */
+  extend?: (
+    app: FastifyInstance,
+    parts: { store: Store; clock: () => number },
+  ) => Promise<void> | void;
+}
+
+export interface RunningApp {
+  /** Where the API and page answer, e.g. http://127.0.0.1:8640. */
+  apiUrl: string;
+  /** The broker the ingest reads: the configured one, or the embedded one. */
+  brokerUrl: string;
+  embeddedBroker: boolean;
+  store: Store;
+  analyser: Analyser;
+  api: FastifyInstance;
+  /** Stops taking input, finishes the current batches, saves state and closes everything. */
+  close(): Promise<void>;
+}
+
+const realTimers = {
+  setInterval: (callback: () => void, ms: number): unknown => setInterval(callback, ms),
+  clearInterval: (handle: unknown): void => {
+    clearInterval(handle as NodeJS.Timeout);
+  },
+  setTimeout: (callback: () => void, ms: number): unknown => setTimeout(callback, ms),
+  clearTimeout: (handle: unknown): void => {
+    clearTimeout(handle as NodeJS.Timeout);
+  },
+};
+
+/**
+ * Everything trueshift does, in one process, on the given configuration: the store, the embedded
+ * broker when no broker is configured, MQTT ingest, the drop folder, the analyser, alert delivery
+ * and the API. Parts are started in the order data flows and closed in the reverse order, so a
+ * sample acknowledged to the broker is always in the store first.
+ */
+export async function startApp(deps: AppDeps): Promise<RunningApp> {
+  const { config, log } = deps;
+  const clock = deps.clock ?? Date.now;
+  const closers: { name: string; close: () => Promise<void> }[] = [];
+  const closeAll = async (): Promise<void> => {
+    for (const part of closers.reverse()) {
+      try {
+        await part.close();
+      } catch (error) {
+        log.error({ err: error, part: part.name }, 'closing a part failed');
+      }
+    }
+    closers.length = 0;
+  };
+
+  try {
+    await mkdir(dirname(config.store.path), { recursive: true });
+    await mkdir(config.drop.folder, { recursive: true });
+    const store = openSqliteStore({ path: config.store.path });
+    closers.push({ name: 'store', close: () => store.close() });
+
+    let broker: EmbeddedBroker | null = null;
+    if (config.mqtt.url === null) {
+      const embedded = await startEmbeddedBroker(config.mqtt.embedded);
+      broker = embedded;
+      closers.push({ name: 'embedded broker', close: () => embedded.close() });
+      log.info({ url: embedded.url }, 'embedded MQTT broker started');
+    }
+    const brokerUrl = broker?.url ?? config.mqtt.url ?? '';
+    // The embedded broker speaks MQTT 3.1.1 only; a persistent session there is clean: false.
+    const protocolVersion = broker === null ? 5 : 4;
+
+    const analyser = buildAnalyser({
+      store,
+      log: log.child({ part: 'analyser' }),
+      clock,
+      options: {
+        pollMs: config.analysis.pollMs,
+        alertTargets: outboxTargets(config, clock()),
+        defaults: {
+          riskLevel: config.analysis.riskLevel,
+          nBefore: config.analysis.nBefore,
+          alertAfter: config.analysis.alertAfter,
+          inControlArl: config.analysis.inControlArl,
+          cusumK: config.analysis.cusumK,
+          ewmaLambda: config.analysis.ewmaLambda,
+          staleAfterIntervals: config.analysis.staleAfterIntervals,
+          stuckAfter: config.analysis.stuckAfter,
+        },
+      },
+    });
+    closers.push({ name: 'analyser', close: () => analyser.close() });
+
+    const publisher: MqttClient = await connectAsync(brokerUrl, {
+      clientId: `${config.mqtt.clientId}-alerts`,
+      protocolVersion,
+      reconnectPeriod: config.mqtt.reconnectMinMs,
+      ...(config.mqtt.username === undefined ? {} : { username: config.mqtt.username }),
+      ...(config.mqtt.password === undefined ? {} : { password: config.mqtt.password }),
+    });
+    closers.push({ name: 'alert publisher', close: () => publisher.endAsync() });
+    const delivery: Delivery = buildDelivery({
+      store,
+      clock,
+      log: log.child({ part: 'delivery' }),
+      options: config.delivery,
+      webhooks: config.webhooks,
+      timers: realTimers,
+      publishMqtt: async (topic, payload) => {
+        await publisher.publishAsync(topic, payload, { qos: 1 });
+      },
+    });
+    closers.push({ name: 'delivery', close: () => delivery.stop() });
+
+    const ingest: MqttIngest = buildMqttIngest({
+      store,
+      log: log.child({ part: 'mqtt-ingest' }),
+      clock,
+      options: {
+        url: brokerUrl,
+        clientId: config.mqtt.clientId,
+        protocolVersion,
+        ...(config.mqtt.username === undefined ? {} : { username: config.mqtt.username }),
+        ...(config.mqtt.password === undefined ? {} : { password: config.mqtt.password }),
+        sessionExpirySec: config.mqtt.sessionExpirySec,
+        subscriptions: config.mqtt.subscriptions,
+        maxFutureMs: config.ingest.maxFutureMs,
+        maxPayloadBytes: config.ingest.maxPayloadBytes,
+        reconnectMinMs: config.mqtt.reconnectMinMs,
+        reconnectMaxMs: config.mqtt.reconnectMaxMs,
+      },
+    });
+    const drop: DropFolder = buildDropFolder({
+      store,
+      log: log.child({ part: 'drop-folder' }),
+      clock,
+      options: {
+        folder: config.drop.folder,
+        pollMs: config.drop.pollMs,
+        maxFutureMs: config.ingest.maxFutureMs,
+      },
+    });
+
+    const api = await buildApi({
+      store,
+      config,
+      clock,
+      log: log.child({ part: 'api' }),
+      events: analyser.events,
+      wakeDelivery: () => {
+        delivery.wake();
+      },
+      health: async () => {
+        const mqtt = ingest.health();
+        return {
+          ingest: { connected: mqtt.connected, detail: mqtt.lastError },
+          analyser: { lag: await analyser.lag() },
+        };
+      },
+    });
+    registerWeb(api, { store, clock, config });
+    await deps.extend?.(api, { store, clock });
+    closers.push({ name: 'api', close: () => api.close() });
+
+    analyser.start();
+    delivery.start();
+    await ingest.start();
+    closers.push({ name: 'mqtt ingest', close: () => ingest.close() });
+    await drop.start();
+    closers.push({ name: 'drop folder', close: () => drop.close() });
+    if (config.sparkplug.groups.length > 0) {
+      // Sparkplug B data is QoS 0 by its specification: at most once, with losses seen as seq gaps.
+      const sparkplug = buildSparkplugIngest({
+        store,
+        log: log.child({ part: 'sparkplug' }),
+        clock,
+        options: {
+          url: brokerUrl,
+          clientId: config.sparkplug.clientId,
+          groups: config.sparkplug.groups,
+          tagTemplate: config.sparkplug.tagTemplate,
+          protocolVersion,
+          maxFutureMs: config.ingest.maxFutureMs,
+          maxPayloadBytes: config.ingest.maxPayloadBytes,
+          ...(config.mqtt.username === undefined ? {} : { username: config.mqtt.username }),
+          ...(config.mqtt.password === undefined ? {} : { password: config.mqtt.password }),
+        },
+      });
+      sparkplug.events.on('stale-tags', () => {
+        analyser.notify();
+      });
+      await sparkplug.start();
+      closers.push({ name: 'sparkplug ingest', close: () => sparkplug.close() });
+    }
+    const apiUrl = await listenApi(api, config);
+    log.info({ apiUrl, brokerUrl }, 'trueshift is running');
+
+    let closed: Promise<void> | null = null;
+    return {
+      apiUrl,
+      brokerUrl,
+      embeddedBroker: broker !== null,
+      store,
+      analyser,
+      api,
+      close: () => (closed ??= closeAll()),
+    };
+  } catch (error) {
+    await closeAll();
+    throw error;
+  }
+}
