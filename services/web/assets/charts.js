@@ -152,12 +152,10 @@ export function runChart(target, run, { unit, markLabel }) {
   const marks = [run.before?.mean ?? null, run.after?.mean ?? null];
   const [yMin, yMax] = range([...run.value, ...marks]);
   const times = run.t;
-  const xMin = Math.min(times[0] ?? run.markAt, run.markAt, run.before?.from ?? run.markAt);
-  const xMax = Math.max(
-    times[times.length - 1] ?? run.markAt,
-    run.markAt,
-    run.after?.to ?? run.markAt,
-  );
+  // Without a mark there is no mark time to keep in view (its placeholder would stretch the axis).
+  const anchor = markLabel === null ? (times[0] ?? 0) : run.markAt;
+  const xMin = Math.min(times[0] ?? anchor, anchor, run.before?.from ?? anchor);
+  const xMax = Math.max(times[times.length - 1] ?? anchor, anchor, run.after?.to ?? anchor);
   return mount(
     target,
     {
