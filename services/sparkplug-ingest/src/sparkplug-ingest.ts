@@ -1,3 +1,4 @@
+import { createValidRanges } from '@trueshift/ingest';
 import { EventEmitter } from 'node:events';
 import { setTimeout as sleep } from 'node:timers/promises';
 import { TrueshiftError } from '@trueshift/errors';
@@ -135,14 +136,14 @@ export function buildSparkplugIngest(deps: SparkplugIngestDeps): SparkplugIngest
   const highWater = options.highWater ?? 50_000;
   const rangeRefreshMs = options.rangeRefreshMs ?? 60_000;
 
-  let ranges = new Map<string, { min: number | null; max: number | null }>();
-  let rangesLoadedAt = Number.NEGATIVE_INFINITY;
+  // The same valid ranges, and the same refresh rule, as the MQTT and CSV ingest.
+  const ranges = createValidRanges(store, clock, rangeRefreshMs);
   const session = createSparkplugSession({
     groups: options.groups,
     tagTemplate: options.tagTemplate,
     maxFutureMs: options.maxFutureMs,
     maxPayloadBytes: options.maxPayloadBytes,
-    validRange: (tag) => ranges.get(tag),
+    validRange: (tag) => ranges.lookup(tag),
   });
 
   const events = new EventEmitter<SparkplugIngestEventMap>();
@@ -178,19 +179,6 @@ export function buildSparkplugIngest(deps: SparkplugIngestDeps): SparkplugIngest
     ...options.groups.map((group) => `${SPARKPLUG_NAMESPACE}/${group}/#`),
     `${SPARKPLUG_NAMESPACE}/STATE/#`,
   ];
-
-  /** The valid ranges the parsers check against, reloaded when older than rangeRefreshMs. */
-  async function refreshRanges(): Promise<void> {
-    if (clock() - rangesLoadedAt < rangeRefreshMs) return;
-    const next = new Map<string, { min: number | null; max: number | null }>();
-    for (const tag of await store.listTags()) {
-      if (tag.validMin !== null || tag.validMax !== null) {
-        next.set(tag.name, { min: tag.validMin, max: tag.validMax });
-      }
-    }
-    ranges = next;
-    rangesLoadedAt = clock();
-  }
 
   function note(event: SparkplugEvent): void {
     switch (event.type) {
@@ -313,7 +301,7 @@ export function buildSparkplugIngest(deps: SparkplugIngestDeps): SparkplugIngest
           current.rejected = [];
         }
         // For the messages after this batch; these were judged against the copy in hand.
-        await refreshRanges().catch((error: unknown) => {
+        await ranges.refresh().catch((error: unknown) => {
           log.warn({ error: describe(error) }, 'Sparkplug ingest: reloading valid ranges failed');
         });
         return;
@@ -377,7 +365,7 @@ export function buildSparkplugIngest(deps: SparkplugIngestDeps): SparkplugIngest
     async start() {
       if (client !== null) return;
       // Before the first message: its samples are judged against these ranges.
-      await refreshRanges().catch((error: unknown) => {
+      await ranges.refresh().catch((error: unknown) => {
         log.warn({ error: describe(error) }, 'Sparkplug ingest: loading valid ranges failed');
       });
       const clientOptions: IClientOptions = {
