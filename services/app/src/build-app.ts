@@ -173,7 +173,8 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
       health: async () => {
         const mqtt = ingest.health();
         return {
-          ingest: { connected: mqtt.connected, detail: mqtt.lastError },
+          // Connected but failing to store is not ready either: nothing is being acknowledged.
+          ingest: { connected: mqtt.connected && mqtt.healthy, detail: mqtt.lastError },
           analyser: { lag: await analyser.lag() },
         };
       },
