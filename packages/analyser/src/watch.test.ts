@@ -1,4 +1,4 @@
-import { cusumArl, seededRandom } from '@trueshift/stats';
+import { ar1Series, cusumArl, seededRandom } from '@trueshift/stats';
 import { describe, expect, it } from 'vitest';
 import { chartDesign } from './chart-design.js';
 import { createWatch, watchConfigure, watchRebaseline, watchUpdate } from './watch.js';
@@ -172,5 +172,118 @@ describe('the watch without a mark', () => {
     );
     expect(watchUpdate(state, 1, Number.NaN)).toBeNull();
     expect(state.n).toBe(0);
+  });
+});
+
+describe('the watch on an autocorrelated tag (AR(1) residual mode)', () => {
+  // A long design ARL, as a plant would run the unmarked watch, so false alarms within 2,000 values
+  // should be rare: with known mean and sigma, 1 − (1 − 1/20,000)^2000 ≈ 9.5% of runs.
+  const quiet = chartDesign({ k: 0.5, lambda: 0.2, targetArl: 20_000 });
+  const quietSettings: WatchSettings = {
+    k: quiet.k,
+    h: quiet.h,
+    lambda: quiet.lambda,
+    L: quiet.L,
+    minHistory: 30,
+    baselineSize: 300,
+  };
+
+  /** Share of seeded runs (300-value baseline, then 2,000 in control) with any unmarked shift. */
+  function falseAlarmShare(phi: number, residuals: boolean): { share: number; modeShare: number } {
+    let alarms = 0;
+    let residualRuns = 0;
+    const runs = 100;
+    for (let seed = 1; seed <= runs; seed++) {
+      const x = ar1Series(seededRandom(seed), 2300, 50, 1, phi);
+      const state = createWatch({ ...quietSettings, residuals }, x.subarray(0, 300));
+      if (state.phi !== null) residualRuns += 1;
+      for (let i = 300; i < x.length; i++) {
+        if (watchUpdate(state, i, x[i] ?? Number.NaN) !== null) {
+          alarms += 1;
+          break;
+        }
+      }
+    }
+    return { share: alarms / runs, modeShare: residualRuns / runs };
+  }
+
+  it('keeps false alarms near the design rate at φ = 0.5, far below charting the raw values', () => {
+    const independent = falseAlarmShare(0, true);
+    const after = falseAlarmShare(0.5, true);
+    const before = falseAlarmShare(0.5, false);
+    // A baseline estimated from 300 values about doubles the 9.5% of known parameters even on
+    // independent data (sigma from 300 moving ranges is off by several percent, and h ≈ 8.7 is
+    // steep in sigma): 24 of these 100 runs (18.5% over 200 seeds). Residual mode should land at
+    // that rate (25 of 100 here); 35% is about 0.2 plus three binomial standard errors of 100 runs
+    // (√(0.2 · 0.8 / 100) = 0.04), well clear of the raw-value rate below.
+    expect(independent.share).toBeLessThan(0.35);
+    expect(after.modeShare).toBe(1);
+    expect(after.share).toBeLessThan(0.35);
+    // Raw values: the moving-range sigma understates the AR(1) sigma by √(1 − φ) ≈ 0.71 and the
+    // correlated deviations pile up, so almost every run alarms (100 of 100 on these seeds).
+    expect(before.modeShare).toBe(0);
+    expect(before.share).toBeGreaterThan(0.9);
+  });
+
+  it('still catches a 2σ step, with its change point and the new level in tag units', () => {
+    let caught = 0;
+    const changeErrors: number[] = [];
+    const levelErrors: number[] = [];
+    for (let seed = 300; seed < 350; seed++) {
+      const x = ar1Series(seededRandom(seed), 700, 50, 1, 0.5);
+      for (let i = 500; i < x.length; i++) x[i] = (x[i] ?? 0) + 2;
+      const state = createWatch(quietSettings, x.subarray(0, 300));
+      const events = run(state, x.subarray(300), 300);
+      const up = events.find((e) => e.side === 'rise' && e.signalTime >= 500);
+      if (up === undefined || up.signalTime >= 540) continue;
+      caught += 1;
+      expect(up.residuals).toBe(true);
+      expect(up.phi).toBeGreaterThan(0.3);
+      changeErrors.push(Math.abs(up.changeTime - 500));
+      levelErrors.push(Math.abs(up.newLevel - 52));
+    }
+    changeErrors.sort((a, b) => a - b);
+    levelErrors.sort((a, b) => a - b);
+    const median = (xs: number[]): number => xs[xs.length >> 1] ?? Infinity;
+    // The step is 2 process σ, about 1.15 residual σ after its first value (δ(1 − φ) / √(1 − φ²)),
+    // so at h ≈ 8.7 the signal takes some tens of values; 40 is generous.
+    expect(caught).toBeGreaterThanOrEqual(45);
+    expect(median(changeErrors)).toBeLessThanOrEqual(5);
+    // Without the 1 / (1 − φ) conversion the level would read about 51 (half the step).
+    expect(median(levelErrors)).toBeLessThan(0.6);
+  });
+
+  it('leaves independent data on the raw values, exactly as before', () => {
+    let residualRuns = 0;
+    for (let seed = 400; seed < 440; seed++) {
+      const random = seededRandom(seed);
+      const x = Array.from({ length: 800 }, (_, i) => 50 + (i >= 600 ? 2 : 0) + random.normal());
+      const auto = createWatch(settings, x.slice(0, 200));
+      const raw = createWatch({ ...settings, residuals: false }, x.slice(0, 200));
+      if (auto.phi !== null) {
+        // r1 of independent values passes 2/√N by chance in about 2.5% of histories (one side).
+        residualRuns += 1;
+        continue;
+      }
+      const autoEvents = run(auto, x.slice(200), 200);
+      expect(autoEvents).toEqual(run(raw, x.slice(200), 200));
+      expect(autoEvents.every((e) => !e.residuals && e.phi === null)).toBe(true);
+    }
+    expect(residualRuns).toBeLessThanOrEqual(3);
+  });
+
+  it('loads a state persisted before residual mode as a raw-value watch', () => {
+    const x = ar1Series(seededRandom(5), 400, 10, 1, 0.5);
+    const state = createWatch(settings, x.subarray(0, 200));
+    expect(state.phi).not.toBeNull();
+    const old = JSON.parse(JSON.stringify(state)) as WatchState;
+    delete old.phi;
+    delete old.residualSigma;
+    delete old.previous;
+    watchRebaseline(old, old.baseline?.mean ?? 0);
+    expect(old.cusum?.settings.target).toBe(old.baseline?.mean);
+    run(old, x.subarray(200), 200);
+    expect(old.cusum?.settings.target).not.toBe(0);
+    expect(old.previous).toBe(x[399]);
   });
 });

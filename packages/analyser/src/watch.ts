@@ -8,10 +8,20 @@
  * run (about 4 for a 2σ shift), and charts restarted on it would be off by about σ/2 and signal again
  * within tens of values.
  *
+ * Autocorrelated tags (most plant tags: AR(1) with φ of 0.3–0.6) break the charts' assumption of
+ * independent values: the moving-range sigma understates the process sigma and correlated deviations
+ * pile up in the CUSUM, so false alarms come far more often than the design ARL. When the baseline
+ * history's lag-1 autocorrelation is significantly positive (r1 > 2/√N), the watch charts the
+ * one-step residuals of an AR(1) fit instead, e = (x_t − μ) − φ(x_{t−1} − μ) with φ = r1, against
+ * target 0 (Alwan & Roberts 1988; Montgomery, Introduction to Statistical Quality Control, section
+ * on autocorrelated process data; cited from memory). The residuals are close to independent, so the
+ * design ARL holds again.
+ *
  * The state is a plain object (JSON round-trips unchanged) updated in place in O(1) per value.
  */
 
 import {
+  autocorrelationCheck,
   createCusum,
   createEwma,
   cusumChange,
@@ -35,6 +45,11 @@ export interface WatchSettings {
   minHistory: number;
   /** At most this many of the latest seed values form the baseline. */
   baselineSize: number;
+  /**
+   * false charts the raw values even on an autocorrelated tag (the behaviour before residual mode,
+   * kept to compare against); absent or true chooses residual mode from the baseline history.
+   */
+  residuals?: boolean;
 }
 
 export interface WatchState {
@@ -54,6 +69,15 @@ export interface WatchState {
   /** Unmarked shifts raised so far; numbers them for their alerts. */
   shifts: number;
   lastTime: number | null;
+  /**
+   * AR(1) coefficient of the baseline history when the charts watch residuals, else null. Missing
+   * in states persisted before residual mode, which means null.
+   */
+  phi?: number | null;
+  /** Sigma of the baseline history's residuals, tag units; null outside residual mode. */
+  residualSigma?: number | null;
+  /** The last finite value folded in, the x_{t−1} of the next residual. */
+  previous?: number | null;
 }
 
 export interface UnmarkedShift {
@@ -73,6 +97,15 @@ export interface UnmarkedShift {
   cusum: { k: number; h: number; upper: number; lower: number };
   /** Whether the EWMA was outside its limits at the signal too. */
   ewmaAgrees: boolean;
+  /**
+   * Whether the charts watched AR(1) residuals (the tag's history was autocorrelated); then the
+   * cusum sums are in residual σ units and newLevel is converted back to the tag's units.
+   */
+  residuals: boolean;
+  /** The AR(1) coefficient used in residual mode, else null. */
+  phi: number | null;
+  /** Sigma of the residuals in residual mode, tag units, else null. */
+  residualSigma: number | null;
 }
 
 export function createWatch(settings: WatchSettings, seed?: ArrayLike<number>): WatchState {
@@ -89,6 +122,9 @@ export function createWatch(settings: WatchSettings, seed?: ArrayLike<number>): 
     lowerRunStart: null,
     shifts: 0,
     lastTime: null,
+    phi: null,
+    residualSigma: null,
+    previous: null,
   };
   if (seed !== undefined) {
     const from = Math.max(0, seed.length - settings.baselineSize);
@@ -96,6 +132,7 @@ export function createWatch(settings: WatchSettings, seed?: ArrayLike<number>): 
       const x = seed[i] ?? Number.NaN;
       if (Number.isFinite(x)) state.learning.push(x);
     }
+    state.previous = state.learning[state.learning.length - 1] ?? null;
     if (state.learning.length >= settings.minHistory) setBaselineFromLearning(state);
   }
   return state;
@@ -115,10 +152,60 @@ function checkWatchSettings(s: WatchSettings): void {
   createEwma({ target: 0, sigma: 1, lambda: s.lambda, L: s.L });
 }
 
+/** φ is clamped below 1: a near-unit-root fit would turn residuals into bare differences. */
+const MAX_PHI = 0.95;
+
+/**
+ * Decides residual mode from a baseline history: φ and the residuals' sigma when r1 is above the
+ * 2/√N band of independent values, else null. Only positive r1 counts: plant sampling makes
+ * neighbours alike, and a negative r1 is more likely noise than a real alternating process. The
+ * residual sigma is the median moving range of the residuals / 0.954 (robustBaseline), not their SD:
+ * the residuals of an adequate fit are about independent, so the moving range is unbiased for them,
+ * and a step or spike in the history shows as one or two wild residuals that the median ignores but
+ * the SD would not.
+ */
+function residualFit(
+  values: readonly number[],
+  level: number,
+): { phi: number; sigma: number } | null {
+  const check = autocorrelationCheck(values);
+  if (!(check.flagged && check.r1 > 0)) return null;
+  const phi = Math.min(MAX_PHI, check.r1);
+  const residuals: number[] = [];
+  for (let i = 1; i < values.length; i++) {
+    const x = values[i] ?? Number.NaN;
+    const before = values[i - 1] ?? Number.NaN;
+    residuals.push(x - level - phi * (before - level));
+  }
+  const fit = robustBaseline(residuals);
+  return fit === null ? null : { phi, sigma: fit.sigma };
+}
+
+function setResidualMode(state: WatchState, values: readonly number[], level: number): void {
+  const fit = state.settings.residuals === false ? null : residualFit(values, level);
+  state.phi = fit?.phi ?? null;
+  state.residualSigma = fit?.sigma ?? null;
+}
+
+/**
+ * φ and the residual sigma while residual mode is on. Old states lack the fields (no residual
+ * mode); settings with residuals: false switch it off even when a fit is held.
+ */
+function residualModeOf(state: WatchState): { phi: number; sigma: number } | null {
+  const phi = state.phi ?? null;
+  const sigma = state.residualSigma ?? null;
+  if (phi === null || sigma === null || state.settings.residuals === false) return null;
+  return { phi, sigma };
+}
+
 function startCharts(state: WatchState, level: number, sigma: number): void {
   const { k, h, lambda, L } = state.settings;
-  state.cusum = createCusum({ target: level, sigma, k, h });
-  state.ewma = createEwma({ target: level, sigma, lambda, L });
+  const mode = residualModeOf(state);
+  // In residual mode both charts watch residuals around 0, whatever the level.
+  const target = mode === null ? level : 0;
+  const chartSigma = mode === null ? sigma : mode.sigma;
+  state.cusum = createCusum({ target, sigma: chartSigma, k, h });
+  state.ewma = createEwma({ target, sigma: chartSigma, lambda, L });
   state.upperRunStart = null;
   state.lowerRunStart = null;
   state.relearn = null;
@@ -134,6 +221,7 @@ function setBaselineFromLearning(state: WatchState): void {
     return;
   }
   state.baseline = baseline;
+  setResidualMode(state, state.learning, baseline.mean);
   // A baseline from fewer than baselineSize values is provisional: the values stay, more join
   // them while the charts run, and the baseline is estimated once more from the full set (a sigma
   // from 30 moving ranges is off by about 15%, enough to halve or double the in-control ARL).
@@ -143,9 +231,11 @@ function setBaselineFromLearning(state: WatchState): void {
 
 function refineBaseline(state: WatchState): void {
   const refined = robustBaseline(state.learning);
+  const values = state.learning;
   state.learning = [];
   if (refined === null) return;
   state.baseline = refined;
+  setResidualMode(state, values, refined.mean);
   startCharts(state, refined.mean, refined.sigma);
 }
 
@@ -156,6 +246,8 @@ function refineBaseline(state: WatchState): void {
 export function watchUpdate(state: WatchState, t: number, x: number): UnmarkedShift | null {
   if (!Number.isFinite(x)) return null;
   state.lastTime = t;
+  const previous = state.previous ?? null;
+  state.previous = x;
   const { cusum, ewma, baseline, relearn } = state;
   if (relearn !== null && baseline !== null) {
     relearn.sum += x;
@@ -173,8 +265,14 @@ export function watchUpdate(state: WatchState, t: number, x: number): UnmarkedSh
     return null;
   }
   state.n += 1;
-  cusumUpdate(cusum, x);
-  ewmaUpdate(ewma, x);
+  const mode = residualModeOf(state);
+  // The one-step residual; without an x_{t−1} (cannot happen after a baseline) the deviation.
+  const plotted =
+    mode === null
+      ? x
+      : x - baseline.mean - mode.phi * ((previous ?? baseline.mean) - baseline.mean);
+  cusumUpdate(cusum, plotted);
+  ewmaUpdate(ewma, plotted);
   state.upperRunStart = cusum.upperRunLength === 0 ? null : (state.upperRunStart ?? t);
   state.lowerRunStart = cusum.lowerRunLength === 0 ? null : (state.lowerRunStart ?? t);
   const signal = cusumSignal(cusum);
@@ -191,10 +289,13 @@ export function watchUpdate(state: WatchState, t: number, x: number): UnmarkedSh
   const side = signal === 'both' ? (cusum.upper >= cusum.lower ? 'upper' : 'lower') : signal;
   const change = cusumChange(cusum);
   const runLength = side === 'upper' ? cusum.upperRunLength : cusum.lowerRunLength;
-  const newLevel =
+  const chartLevel =
     change?.side === side
       ? change.estimatedMean
       : (side === 'upper' ? cusum.upperSum : cusum.lowerSum) / Math.max(1, runLength);
+  // A level step δ shows in the residuals as δ(1 − φ) after its first value, so the residual-scale
+  // mean δ_e maps back to μ + δ_e / (1 − φ) in the tag's units.
+  const newLevel = mode === null ? chartLevel : baseline.mean + chartLevel / (1 - mode.phi);
   const ewmaSide = ewmaSignal(ewma);
   state.shifts += 1;
   const event: UnmarkedShift = {
@@ -209,6 +310,9 @@ export function watchUpdate(state: WatchState, t: number, x: number): UnmarkedSh
     sigma: baseline.sigma,
     cusum: { k: cusum.settings.k, h: cusum.settings.h, upper: cusum.upper, lower: cusum.lower },
     ewmaAgrees: ewmaSide === side,
+    residuals: mode !== null,
+    phi: mode?.phi ?? null,
+    residualSigma: mode?.sigma ?? null,
   };
   state.baseline = { ...baseline, mean: newLevel };
   state.cusum = null;
@@ -229,6 +333,11 @@ export function watchRebaseline(state: WatchState, level: number, sigma?: number
   const newSigma = sigma ?? current?.sigma;
   // Without a baseline yet there is no sigma to keep: the watch simply goes on learning.
   if (newSigma === undefined) return;
+  // A new noise level scales the residuals' sigma alike; φ, a property of the process, stays.
+  const residualSigma = state.residualSigma ?? null;
+  if (sigma !== undefined && current !== null && residualSigma !== null) {
+    state.residualSigma = (residualSigma * sigma) / current.sigma;
+  }
   state.baseline = {
     mean: level,
     sigma: newSigma,
@@ -248,7 +357,8 @@ export function watchConfigure(state: WatchState, settings: WatchSettings): bool
     s.lambda === settings.lambda &&
     s.L === settings.L &&
     s.minHistory === settings.minHistory &&
-    s.baselineSize === settings.baselineSize
+    s.baselineSize === settings.baselineSize &&
+    s.residuals === settings.residuals
   ) {
     return false;
   }
