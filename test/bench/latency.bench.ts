@@ -9,20 +9,25 @@
  * of the sample behind them. The analyser follows the store every analysis.pollMs (1 s by default),
  * which is most of the latency measured here.
  *
+ * Then, in a service of its own, the evidence queries over HTTP on a tag with 10^6 samples, cold and
+ * cached, with autocannon, beside GET /health as the baseline.
+ *
  * Run with `npm run build && npx tsx test/bench/latency.bench.ts`.
  */
-import { writeFileSync, mkdtempSync, rmSync } from 'node:fs';
+import { mkdirSync, mkdtempSync, rmSync, writeFileSync } from 'node:fs';
 import { request } from 'node:http';
 import { cpus, tmpdir, totalmem } from 'node:os';
 import { join } from 'node:path';
 import { setTimeout as sleep } from 'node:timers/promises';
 import { fileURLToPath } from 'node:url';
+import autocannon from 'autocannon';
 import { connectAsync } from 'mqtt';
 import { seededRandom } from '@trueshift/stats';
 import { openSqliteStore } from '@trueshift/store-sqlite';
 import { requireBuiltCli } from '../helpers/cli-process.js';
 import { startMosquitto } from '../helpers/mosquitto.js';
 import { serviceProcess } from '../helpers/service-process.js';
+import type { ServiceProcess } from '../helpers/service-process.js';
 import { waitFor } from '../helpers/store-faults.js';
 
 const RATE = Number(process.env.BENCH_LATENCY_RATE ?? 5000);
@@ -32,6 +37,47 @@ const PROBES = 50;
 const HISTORY = 150;
 const WATCHED = Number(process.env.BENCH_LATENCY_TAGS ?? 10_000);
 const TICK_MS = 50;
+const BIG_N = Number(process.env.BENCH_LATENCY_BIG_N ?? 1_000_000);
+const BIG_AFTER = 30;
+const RUNS = 3;
+const CONNECTIONS = 2;
+const CACHED_SECONDS = Number(process.env.BENCH_LATENCY_CACHED_SECONDS ?? 10);
+const COLD_REQUESTS = 10;
+
+function median(values: readonly number[]): number {
+  return quantile(values, 0.5);
+}
+
+interface Run {
+  mean: number;
+  /** connections × duration / requests: the mean time per request, from the throughput. */
+  perRequest: number;
+  p50: number;
+  p99: number;
+  requests: number;
+}
+
+/** One autocannon run on loopback: `amount` requests, or `seconds` of them. */
+async function cannon(url: string, bound: { amount: number } | { seconds: number }): Promise<Run> {
+  const result = await autocannon({
+    url,
+    connections: CONNECTIONS,
+    timeout: 120,
+    ...('amount' in bound ? { amount: bound.amount } : { duration: bound.seconds }),
+  });
+  if (result.non2xx > 0 || result.errors > 0) {
+    throw new Error(
+      `${url}: ${String(result.non2xx)} non-2xx answers, ${String(result.errors)} errors`,
+    );
+  }
+  return {
+    mean: result.latency.average,
+    perRequest: (CONNECTIONS * result.duration * 1000) / result.requests.total,
+    p50: result.latency.p50,
+    p99: result.latency.p99,
+    requests: result.requests.total,
+  };
+}
 
 function quantile(values: readonly number[], q: number): number {
   const sorted = [...values].sort((a, b) => a - b);
@@ -47,6 +93,7 @@ const say = (line: string): void => {
 requireBuiltCli();
 const broker = await startMosquitto();
 const work = mkdtempSync(join(tmpdir(), 'trueshift-bench-latency-'));
+let big: ServiceProcess | null = null;
 const service = await serviceProcess({
   dir: work,
   brokerUrl: broker.url,
@@ -216,8 +263,103 @@ try {
   );
   await sleep(3000);
   const rssAfter = service.rssBytes();
+  const watchedSeconds = (Date.now() - watchedStart) / 1000;
   await client.endAsync();
   stream.destroy();
+  await service.stop();
+
+  // ---- evidence queries over HTTP on a tag with BIG_N samples, in a service of its own ----
+  const bigWork = join(work, 'big');
+  mkdirSync(bigWork);
+  const bigService = await serviceProcess({
+    dir: bigWork,
+    brokerUrl: broker.url,
+    clientId: 'bench-big',
+  });
+  big = bigService;
+  const bigTag = 'bench/big';
+  const bigStart = now0 - (BIG_N + 10 * BIG_AFTER) * 1000;
+  const bigMarkAt = bigStart + BIG_N * 1000;
+  const seedStarted = Date.now();
+  const bigStore = openSqliteStore({ path: bigService.storePath });
+  await bigStore.upsertTag({ name: bigTag, settings: { kind: 'batch', inControlArl: 1e7 } }, now0);
+  const BATCH = 20_000;
+  for (let from = 0; from < BIG_N; from += BATCH) {
+    const n = Math.min(BATCH, BIG_N - from);
+    await bigStore.writeSamples(
+      Array.from({ length: n }, (_, i) => ({
+        tag: bigTag,
+        t: bigStart + (from + i) * 1000,
+        value: 10 + 0.1 * rng.normal(),
+        quality: 192,
+        source: 'bench',
+        receivedAt: now0,
+      })),
+    );
+  }
+  const bigMark = await bigStore.createMark(
+    { tags: [bigTag], at: bigMarkAt, label: 'bench', direction: 'rise' },
+    'bench',
+    now0,
+  );
+  await bigStore.writeSamples(
+    Array.from({ length: BIG_AFTER }, (_, i) => ({
+      tag: bigTag,
+      t: bigMarkAt + (i + 1) * 1000,
+      value: 11 + 0.1 * rng.normal(),
+      quality: 192,
+      source: 'bench',
+      receivedAt: now0,
+    })),
+  );
+  await bigStore.close();
+  const seedSeconds = (Date.now() - seedStarted) / 1000;
+  const evidenceUrl = `${bigService.base}/api/v1/marks/${encodeURIComponent(bigMark.id)}/evidence/${encodeURIComponent(bigTag)}`;
+  const targets = [
+    { name: 'GET /health (baseline)', url: `${bigService.base}/health` },
+    { name: 'GET /api/v1/marks/:id/evidence/:tag', url: evidenceUrl },
+    { name: 'GET /api/v1/marks/:id/evidence/:tag/reference', url: `${evidenceUrl}/reference` },
+  ];
+  const analysedStarted = Date.now();
+  await bigService.start(120_000);
+  await waitFor(
+    async () =>
+      (await fetch(evidenceUrl)).status === 200 &&
+      (await bigService.metric('trueshift_analyser_lag_samples')) === 0,
+    'the evidence on the big tag',
+    600_000,
+  );
+  const analysedSeconds = (Date.now() - analysedStarted) / 1000;
+  const reference = (await (await fetch(`${evidenceUrl}/reference`)).json()) as {
+    nHistory: number;
+    nAfter: number;
+  };
+  const cold = new Map<string, Run[]>();
+  const cached = new Map<string, Run[]>();
+  for (let run = 0; run < RUNS; run++) {
+    // Cold: the first requests after a restart, one restart per endpoint, the analyser included.
+    for (const target of targets) {
+      await bigService.stop();
+      await bigService.start(120_000);
+      const runs = cold.get(target.name) ?? [];
+      runs.push(await cannon(target.url, { amount: COLD_REQUESTS }));
+      cold.set(target.name, runs);
+    }
+    await waitFor(
+      async () => (await bigService.metric('trueshift_analyser_lag_samples')) === 0,
+      'the analyser after the restart',
+      600_000,
+    );
+    // Cached: steady state, after a warm-up.
+    for (const target of targets) {
+      await cannon(target.url, { amount: 20 });
+      const runs = cached.get(target.name) ?? [];
+      runs.push(await cannon(target.url, { seconds: CACHED_SECONDS }));
+      cached.set(target.name, runs);
+    }
+  }
+  const bigRss = bigService.rssBytes();
+  await bigService.stop();
 
   const cpu = cpus()[0]?.model ?? 'unknown CPU';
   say('# Latency and memory of the whole service');
@@ -240,17 +382,50 @@ try {
   );
   say('');
   say(
-    `Memory: RSS ${(rssBefore / 2 ** 20).toFixed(1)} MiB before and ${(rssAfter / 2 ** 20).toFixed(1)} MiB after ${String(WATCHED)} more tags were watched (${String(perTag)} samples each, taken in over ${((Date.now() - watchedStart) / 1000).toFixed(0)} s): about ${((rssAfter - rssBefore) / WATCHED).toFixed(0)} bytes per tag (one reading of RSS, garbage included).`,
+    `Memory: RSS ${(rssBefore / 2 ** 20).toFixed(1)} MiB before and ${(rssAfter / 2 ** 20).toFixed(1)} MiB after ${String(WATCHED)} more tags were watched (${String(perTag)} samples each, taken in over ${watchedSeconds.toFixed(0)} s): about ${((rssAfter - rssBefore) / WATCHED).toFixed(0)} bytes per tag (one reading of RSS, garbage included).`,
   );
   say('');
   say(
-    'Each mark settles once its alert opens (three credible looks), so a probe tag gives three evidence events and one alert. The 10,000 tags have 5 samples each: tags known to the store and the analyser with little history; a watch with a full history may cost more per tag. Not measured here yet: evidence query latency over HTTP for a tag with 10^6 samples (cold and cached) with a load generator.',
+    'Each mark settles once its alert opens (three credible looks), so a probe tag gives three evidence events and one alert. The 10,000 tags have 5 samples each: tags known to the store and the analyser with little history; a watch with a full history may cost more per tag. The publish → event figures are one run (not yet medians of several).',
+  );
+  say('');
+  say('## Evidence queries over HTTP on a tag with 10^6 samples');
+  say('');
+  say(
+    `A service of its own on one batch tag: ${String(BIG_N)} history samples, a mark and ${String(BIG_AFTER)} shifted samples after it, written into the store file (${seedSeconds.toFixed(1)} s) before the service started; the analyser had the evidence ${analysedSeconds.toFixed(1)} s after the start. The reference answer covers nHistory = ${String(reference.nHistory)}, nAfter = ${String(reference.nAfter)}. RSS with it: ${(bigRss / 2 ** 20).toFixed(1)} MiB.`,
+  );
+  say('');
+  say(
+    `autocannon ${String(CONNECTIONS)} connections on loopback. Cold: the first ${String(COLD_REQUESTS)} requests right after a restart of the service (one restart per endpoint, while the analyser loads the tag again). Cached: a ${String(CACHED_SECONDS)} s run in steady state after 20 warm-up requests. Each figure is the median over ${String(RUNS)} runs of that run's p50 / p99; GET /health with the same settings is the baseline, and ×health is the ratio of the means. autocannon's percentiles are whole milliseconds, so for the cached runs the mean is taken from the throughput (connections × duration / requests), and for the cold runs it is autocannon's mean of the 10 requests.`,
+  );
+  say('');
+  say(
+    '| endpoint | cold mean ms | cold p50 ms | cold p99 ms | cold ×health | cached mean ms | cached p50 ms | cached p99 ms | cached ×health | cached req/s |',
+  );
+  say('| --- | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: | ---: |');
+  const healthName = targets[0]?.name ?? '';
+  const coldHealth = median((cold.get(healthName) ?? []).map((r) => r.mean));
+  const cachedHealth = median((cached.get(healthName) ?? []).map((r) => r.perRequest));
+  for (const target of targets) {
+    const c = cold.get(target.name) ?? [];
+    const w = cached.get(target.name) ?? [];
+    const coldMean = median(c.map((r) => r.mean));
+    const cachedMean = median(w.map((r) => r.perRequest));
+    const rate = median(w.map((r) => r.requests / CACHED_SECONDS));
+    say(
+      `| ${target.name} | ${coldMean.toFixed(2)} | ${String(median(c.map((r) => r.p50)))} | ${String(median(c.map((r) => r.p99)))} | ${(coldMean / coldHealth).toFixed(1)} | ${cachedMean.toFixed(2)} | ${String(median(w.map((r) => r.p50)))} | ${String(median(w.map((r) => r.p99)))} | ${(cachedMean / cachedHealth).toFixed(1)} | ${rate.toFixed(1)} |`,
+    );
+  }
+  say('');
+  say(
+    'The machine has few cores and the load generator shares them with the service, so the p99s of the fast routes are mostly scheduling noise. The reference route reads every sample before the mark on each request (no cache in the service), so cached there means the SQLite page cache and the OS file cache, not an answer cache.',
   );
   const out = fileURLToPath(new URL('./results/latency.md', import.meta.url));
   writeFileSync(out, `${lines.join('\n')}\n`);
   console.log(`\nWritten to ${out}`);
 } finally {
   await service.stop().catch(() => undefined);
+  await big?.stop().catch(() => undefined);
   await broker.dispose();
   rmSync(work, { recursive: true, force: true });
 }

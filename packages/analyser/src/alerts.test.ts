@@ -37,6 +37,9 @@ describe('alerts', () => {
       sigma: 1,
       cusum: { k: 0.5, h: 5, upper: 0, lower: 5.5 },
       ewmaAgrees: true,
+      residuals: false,
+      phi: null,
+      residualSigma: null,
     };
     const alert = unmarkedShiftAlert('steam', event);
     expect(alert).toMatchObject({
