@@ -5,6 +5,7 @@
 import { afterEach, beforeEach, describe, expect, it } from 'vitest';
 import { isTrueshiftError } from '@trueshift/errors';
 import type { ErrorCode } from '@trueshift/errors';
+import { shardOf } from '@trueshift/store';
 import type { MarkInput, OutboxChannel, OutboxInput, SampleInput, Store } from '@trueshift/store';
 
 export interface OpenedStore {
@@ -299,6 +300,30 @@ export function describeStoreContract(name: string, open: () => Promise<OpenedSt
         expect(new Set(seqs).size).toBe(4);
         expect(await store.lastSeq()).toBe(seqs[3]);
         expect(await store.samplesAfter(await store.lastSeq(), 100)).toEqual([]);
+      });
+
+      it('splits the follower stream by shard: each tag in the shard of its name, nothing twice', async () => {
+        const names = Array.from({ length: 24 }, (_, i) => `kiln${i % 3}/zone${i}/temp`);
+        await store.writeSamples(names.map((tag, i) => sample(tag, i, i)));
+        await store.writeSamples(names.map((tag, i) => sample(tag, i + 30, i + 0.5)));
+        const all = await store.samplesAfter(0, 1000);
+        expect(all).toHaveLength(48);
+        const seen: number[] = [];
+        for (let shard = 0; shard < store.shards; shard++) {
+          const part = await store.samplesAfter(0, 1000, shard);
+          for (const s of part) expect(shardOf(s.tag, store.shards)).toBe(shard);
+          const seqs = part.map((s) => s.seq);
+          expect(seqs).toEqual([...seqs].sort((x, y) => x - y));
+          seen.push(...seqs);
+          // Resuming inside a shard picks up after the last seq seen there.
+          const half = part[Math.floor(part.length / 2)];
+          if (half !== undefined) {
+            const rest = await store.samplesAfter(half.seq, 1000, shard);
+            expect(rest).toEqual(part.filter((s) => s.seq > half.seq));
+          }
+        }
+        expect(seen.sort((x, y) => x - y)).toEqual(all.map((s) => s.seq));
+        await expectCode(store.samplesAfter(0, 10, store.shards), 'INVALID_ARGUMENT');
       });
     });
 
@@ -851,6 +876,18 @@ export function describeStoreContract(name: string, open: () => Promise<OpenedSt
         ]);
         expect(await store.listAnalyserState()).toHaveLength(4);
         expect((await store.loadAnalyserState('mark:m2:evap1.brix'))?.state).toBeNull();
+      });
+
+      it('refuses to save under a lease it does not hold, and saves nothing then', async () => {
+        await expectCode(
+          store.saveAnalyserState([{ key: 'fenced', state: 1, lastSeq: 1, updatedAt: T0 }], {
+            shard: 0,
+            owner: 'nobody',
+            epoch: 1,
+          }),
+          'LEASE_LOST',
+        );
+        expect(await store.loadAnalyserState('fenced')).toBeNull();
       });
     });
 

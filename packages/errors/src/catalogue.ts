@@ -91,6 +91,15 @@ export const errorCatalogue = {
     status: 429,
     message: 'Too many write requests; wait before sending more.',
   },
+  LEASE_LOST: {
+    status: 409,
+    message:
+      'This instance no longer holds the lease on the shard; another instance analyses it now.',
+  },
+  STORE_SHARDS_MISMATCH: {
+    status: 500,
+    message: 'The database was set up with another number of shards than the configuration gives.',
+  },
   CONFIG_INVALID: { status: 500, message: 'The configuration is not valid.' },
   INTERNAL: { status: 500, message: 'An unexpected internal error occurred.' },
 } as const satisfies Record<string, { status: number; message: string }>;

@@ -1,4 +1,5 @@
 export { QUALITY_GOOD, QUALITY_BAD, QUALITY_STALE } from './types.js';
+export { shardOf } from './shard.js';
 export type {
   AlertChange,
   AlertInput,
@@ -7,10 +8,14 @@ export type {
   AlertState,
   AnalyserStateRecord,
   BetterDirection,
+  ClusterMessage,
+  ClusterStore,
   Direction,
   EvidenceSnapshot,
   EvidenceSnapshotInput,
   FileRecord,
+  Lease,
+  LeaseFence,
   MarkInput,
   MarkRecord,
   MarkRevision,

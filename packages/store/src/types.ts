@@ -281,6 +281,13 @@ export interface FileRecord {
 export interface Store {
   close(): Promise<void>;
 
+  /**
+   * How many shards the tags are spread over (by `shardOf` their name), fixed when the store is
+   * created. A follower of one shard sees only its tags' samples, in commit order. 1 for a store
+   * that only one process uses.
+   */
+  readonly shards: number;
+
   upsertTag(tag: TagInput, now: number): Promise<TagRecord>;
   /** Creates tags that do not exist yet with default settings; existing tags are left alone. */
   ensureTags(names: readonly string[], now: number): Promise<void>;
@@ -291,8 +298,12 @@ export interface Store {
   writeSamples(samples: readonly SampleInput[]): Promise<SampleWriteResult>;
   readSamples(tag: string, options?: SampleReadOptions): Promise<SampleColumns>;
   countSamples(tag?: string): Promise<number>;
-  /** Samples stored after `afterSeq`, in insertion order, at most `limit`. */
-  samplesAfter(afterSeq: number, limit: number): Promise<StoredSample[]>;
+  /**
+   * Samples stored after `afterSeq`, in insertion order, at most `limit`; with `shard`, only the
+   * samples of that shard's tags. Within a shard, a sample with a higher seq was committed later,
+   * so a follower that resumes after the last seq it saw misses nothing.
+   */
+  samplesAfter(afterSeq: number, limit: number, shard?: number): Promise<StoredSample[]>;
   lastSeq(): Promise<number>;
 
   quarantine(entries: readonly QuarantineInput[]): Promise<void>;
@@ -355,7 +366,12 @@ export interface Store {
   markAttemptFailed(id: number, error: string, nextAttemptAt: number, dead: boolean): Promise<void>;
   listOutbox(options?: { state?: OutboxState; limit?: number }): Promise<OutboxRecord[]>;
 
-  saveAnalyserState(records: readonly AnalyserStateRecord[]): Promise<void>;
+  /**
+   * Saves the records in one transaction. With a fence, only while that lease is still held at
+   * that epoch: otherwise nothing is saved and LEASE_LOST is thrown (a store without leases
+   * refuses every fence).
+   */
+  saveAnalyserState(records: readonly AnalyserStateRecord[], fence?: LeaseFence): Promise<void>;
   loadAnalyserState(key: string): Promise<AnalyserStateRecord | null>;
   listAnalyserState(prefix?: string): Promise<AnalyserStateRecord[]>;
 
@@ -372,4 +388,59 @@ export interface Store {
   listTokens(): Promise<TokenRecord[]>;
   /** Revokes the token; revoking it again keeps the first time. Throws TOKEN_NOT_FOUND. */
   revokeToken(id: string, now: number): Promise<TokenRecord>;
+}
+
+/** Proof that a writer holds a shard: the lease's owner and the epoch it was taken at. */
+export interface LeaseFence {
+  shard: number;
+  owner: string;
+  epoch: number;
+}
+
+export interface Lease extends LeaseFence {
+  /** Epoch ms after which another instance may take the shard. */
+  expiresAt: number;
+}
+
+/**
+ * What one instance tells the others through the store (PostgreSQL LISTEN/NOTIFY). Sent in the
+ * transaction of the change itself, so a message goes out exactly when the change is committed.
+ */
+export type ClusterMessage =
+  | { kind: 'samples'; shards: number[] }
+  | {
+      kind: 'alert';
+      origin: string;
+      alertId: number;
+      change: AlertChange['change'];
+    }
+  | { kind: 'evidence'; origin: string; snapshotId: number }
+  | { kind: 'mark'; origin: string; markId: string; change: 'created' | 'corrected' | 'withdrawn' };
+
+/**
+ * A store several instances share: it keeps who is alive, who analyses which shard, and carries
+ * messages between instances. Times are epoch ms from the instances' clocks, which must agree to
+ * well within a lease's length (NTP).
+ */
+export interface ClusterStore extends Store {
+  /** The instance this connection speaks for: the `origin` of the messages it sends. */
+  readonly instance: string;
+  /** Records that this instance is alive until `until`; returns every instance alive at `now`. */
+  heartbeat(now: number, until: number): Promise<string[]>;
+  /** Extends this instance's unexpired leases to `until`; returns the leases it still holds. */
+  renewLeases(now: number, until: number): Promise<Lease[]>;
+  /** Takes at most `count` free or expired shards; each take raises that shard's epoch. */
+  claimLeases(count: number, now: number, until: number): Promise<Lease[]>;
+  /** Gives a shard back at once, once its analyser has saved its state. */
+  releaseLease(shard: number): Promise<void>;
+  listLeases(): Promise<Lease[]>;
+  getEvidenceSnapshot(id: number): Promise<EvidenceSnapshot | null>;
+  /**
+   * Calls `listener` with every message any instance sends, its own included, from now on;
+   * `onGap` after the listening connection was lost and came back (messages may be missing).
+   */
+  listen(
+    listener: (message: ClusterMessage) => void,
+    onGap?: () => void,
+  ): Promise<() => Promise<void>>;
 }

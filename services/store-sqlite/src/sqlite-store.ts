@@ -14,6 +14,7 @@ import type {
   EvidenceSnapshot,
   EvidenceSnapshotInput,
   FileRecord,
+  LeaseFence,
   MarkInput,
   MarkRecord,
   MarkRevision,
@@ -386,6 +387,8 @@ function grow<T extends Float64Array | Int32Array>(from: T, to: T): T {
  * answers synchronously underneath; the promises are there for the contract's networked backends.
  */
 export class SqliteStore implements Store {
+  /** One process owns a SQLite file, so there is nothing to share out. */
+  readonly shards = 1;
   private readonly db: Database.Database;
   private readonly statements = new Map<string, Database.Statement>();
   private readonly rawStatements = new Map<string, Database.Statement<unknown[], unknown[]>>();
@@ -621,8 +624,14 @@ export class SqliteStore implements Store {
     });
   }
 
-  samplesAfter(afterSeq: number, limit: number): Promise<StoredSample[]> {
+  samplesAfter(afterSeq: number, limit: number, shard?: number): Promise<StoredSample[]> {
     return this.call(() => {
+      if (shard !== undefined && shard !== 0) {
+        throw new TrueshiftError(
+          'INVALID_ARGUMENT',
+          `A SQLite store has one shard (0); shard ${shard} does not exist.`,
+        );
+      }
       const rows = this.raw<StoredSampleRow>(
         // CROSS JOIN fixes the loop order: walk samples by seq, look each tag up by id.
         `SELECT s.seq, g.name, s.t, s.value, s.quality
@@ -1060,8 +1069,11 @@ export class SqliteStore implements Store {
 
   // ---- analyser state ----
 
-  saveAnalyserState(records: readonly AnalyserStateRecord[]): Promise<void> {
+  saveAnalyserState(records: readonly AnalyserStateRecord[], fence?: LeaseFence): Promise<void> {
     return this.call(() => {
+      if (fence !== undefined) {
+        throw new TrueshiftError('LEASE_LOST', 'A SQLite store holds no leases.');
+      }
       this.write(() => {
         const upsert = this.stmt(
           `INSERT INTO analyser_state (key, state, last_seq, updated_at) VALUES (?, ?, ?, ?)

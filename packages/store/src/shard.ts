@@ -1,0 +1,15 @@
+/**
+ * The shard a tag belongs to: FNV-1a (32 bit) over the name's UTF-16 code units, modulo the
+ * shard count. Every instance and every store must agree on it, so it never changes.
+ */
+export function shardOf(tag: string, shards: number): number {
+  if (!(Number.isInteger(shards) && shards >= 1)) {
+    throw new RangeError(`shards must be a whole number >= 1, got ${shards}`);
+  }
+  let hash = 0x811c9dc5;
+  for (let i = 0; i < tag.length; i++) {
+    hash ^= tag.charCodeAt(i);
+    hash = Math.imul(hash, 0x01000193) >>> 0;
+  }
+  return hash % shards;
+}
