@@ -22,6 +22,8 @@ export default defineConfig({
       '@trueshift/stats': src('./packages/stats/src/index.ts'),
       '@trueshift/store': src('./packages/store/src/index.ts'),
       '@trueshift/store-sqlite': src('./services/store-sqlite/src/index.ts'),
+      '@trueshift/store-postgres': src('./services/store-postgres/src/index.ts'),
+      '@trueshift/cluster': src('./services/cluster/src/index.ts'),
       '@trueshift/web': src('./services/web/src/index.ts'),
     },
   },
