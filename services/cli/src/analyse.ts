@@ -1,4 +1,3 @@
-import { parseArgs } from 'node:util';
 import { TrueshiftError } from '@trueshift/errors';
 import { locateChange, parseHistoryCsv } from '@trueshift/formats';
 import type { HistoryTable } from '@trueshift/formats';
@@ -6,6 +5,7 @@ import { readEvidence } from '@trueshift/report';
 import { computeEvidence } from '@trueshift/stats';
 import type { Direction, Evidence, EvidenceInput, SigmaMethod } from '@trueshift/stats';
 import { CAUTION } from './caution.js';
+import { noMoreArguments, parseCommand } from './command-args.js';
 import { evidenceRows, signalTimes } from './evidence-rows.js';
 import type { SignalTimes } from './evidence-rows.js';
 import { percent, table } from './format.js';
@@ -68,10 +68,8 @@ export interface AnalyseRequest {
 }
 
 export function parseAnalyseArgs(argv: string[]): AnalyseRequest | 'help' {
-  const { values, positionals } = parseArgs({
-    args: argv,
+  const args = parseCommand(argv, {
     allowPositionals: true,
-    strict: true,
     options: {
       change: { type: 'string' },
       direction: { type: 'string' },
@@ -88,15 +86,13 @@ export function parseAnalyseArgs(argv: string[]): AnalyseRequest | 'help' {
       'value-column': { type: 'string' },
       'skip-bad-rows': { type: 'boolean' },
       json: { type: 'boolean' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) return 'help';
+  if (args === 'help') return 'help';
+  const { values, positionals } = args;
   const [file, ...extra] = positionals;
   if (file === undefined) throw new TrueshiftError('INVALID_ARGUMENT', 'Name the CSV file.');
-  if (extra.length > 0) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `Unexpected argument "${extra.join(' ')}".`);
-  }
+  noMoreArguments(extra);
   if (values.change === undefined) {
     throw new TrueshiftError('INVALID_ARGUMENT', '--change is required: a time or row:N.');
   }

@@ -17,6 +17,7 @@ import {
   tokenCommand,
 } from './commands/service.js';
 import type { StopSignal } from './commands/service.js';
+import { showHelp } from './command-args.js';
 import { EXIT, exitCodeOf, processIo } from './io.js';
 import type { CliIo, ExitCode } from './io.js';
 
@@ -64,10 +65,7 @@ const COMMAND_HELP: Readonly<Record<string, string>> = {
 
 async function analyse(argv: string[], io: CliIo): Promise<ExitCode> {
   const request = parseAnalyseArgs(argv);
-  if (request === 'help') {
-    io.stdout(`${ANALYSE_HELP}\n`);
-    return EXIT.ok;
-  }
+  if (request === 'help') return showHelp(io, ANALYSE_HELP);
   let text: string;
   try {
     text = await io.readText(request.file);
@@ -83,17 +81,13 @@ async function analyse(argv: string[], io: CliIo): Promise<ExitCode> {
 
 function help(rest: readonly string[], io: CliIo): ExitCode {
   const [topic, ...extra] = rest;
-  if (topic === undefined) {
-    io.stdout(`${HELP}\n`);
-    return EXIT.ok;
-  }
+  if (topic === undefined) return showHelp(io, HELP);
   const text = COMMAND_HELP[topic];
   if (text === undefined || extra.length > 0) {
     io.stderr(`trueshift: there is no command "${rest.join(' ')}".\n\n${HELP}\n`);
     return EXIT.usage;
   }
-  io.stdout(`${text}\n`);
-  return EXIT.ok;
+  return showHelp(io, text);
 }
 
 /** Who the OS says runs the command; marks and acknowledgements record it. */
@@ -150,8 +144,7 @@ export async function runCli(argv: string[], context: Partial<CliContext> = {}):
       case undefined:
       case '--help':
       case '-h':
-        io.stdout(`${HELP}\n`);
-        return EXIT.ok;
+        return showHelp(io, HELP);
       case 'help':
         return help(rest, io);
       default:

@@ -76,13 +76,3 @@ export function durationOption(value: string, name: string): number {
   }
   return ms;
 }
-
-/** The one positional argument a command takes, refusing extras. */
-export function onePositional(positionals: readonly string[], what: string): string {
-  const [first, ...extra] = positionals;
-  if (first === undefined) throw new TrueshiftError('INVALID_ARGUMENT', `Name ${what}.`);
-  if (extra.length > 0) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `Unexpected argument "${extra.join(' ')}".`);
-  }
-  return first;
-}

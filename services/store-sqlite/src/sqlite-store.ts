@@ -659,32 +659,22 @@ export class SqliteStore implements Store {
   listQuarantine(
     options: { limit?: number; beforeId?: number; source?: string } = {},
   ): Promise<QuarantineEntry[]> {
-    return this.call(() => {
-      const where: string[] = [];
-      const params: unknown[] = [];
-      if (options.beforeId !== undefined) {
-        where.push('id < ?');
-        params.push(options.beforeId);
-      }
-      if (options.source !== undefined) {
-        where.push('source = ?');
-        params.push(options.source);
-      }
-      params.push(limitOf(options.limit, 'listQuarantine'));
-      const sql = `SELECT * FROM quarantine ${where.length > 0 ? `WHERE ${where.join(' AND ')}` : ''}
-                   ORDER BY id DESC LIMIT ?`;
-      return this.stmt<QuarantineRow>(sql)
-        .all(...params)
-        .map((row) => ({
-          id: row.id,
-          source: row.source,
-          raw: row.raw,
-          reason: row.reason,
-          code: row.code as QuarantineEntry['code'],
-          tag: row.tag,
-          receivedAt: row.received_at,
-        }));
-    });
+    return this.call(() =>
+      this.listNewestFirst<QuarantineRow>(
+        'quarantine',
+        { 'id < ?': options.beforeId, 'source = ?': options.source },
+        options.limit,
+        'listQuarantine',
+      ).map((row) => ({
+        id: row.id,
+        source: row.source,
+        raw: row.raw,
+        reason: row.reason,
+        code: row.code as QuarantineEntry['code'],
+        tag: row.tag,
+        receivedAt: row.received_at,
+      })),
+    );
   }
 
   countQuarantine(): Promise<number> {
@@ -989,24 +979,14 @@ export class SqliteStore implements Store {
   listAlerts(
     options: { state?: AlertState; tag?: string; limit?: number } = {},
   ): Promise<AlertRecord[]> {
-    return this.call(() => {
-      const where: string[] = [];
-      const params: unknown[] = [];
-      if (options.state !== undefined) {
-        where.push('state = ?');
-        params.push(options.state);
-      }
-      if (options.tag !== undefined) {
-        where.push('tag = ?');
-        params.push(options.tag);
-      }
-      params.push(limitOf(options.limit, 'listAlerts'));
-      const sql = `SELECT * FROM alerts ${where.length > 0 ? `WHERE ${where.join(' AND ')}` : ''}
-                   ORDER BY id DESC LIMIT ?`;
-      return this.stmt<AlertRow>(sql)
-        .all(...params)
-        .map(alertFromRow);
-    });
+    return this.call(() =>
+      this.listNewestFirst<AlertRow>(
+        'alerts',
+        { 'state = ?': options.state, 'tag = ?': options.tag },
+        options.limit,
+        'listAlerts',
+      ).map(alertFromRow),
+    );
   }
 
   // ---- outbox ----
@@ -1055,16 +1035,14 @@ export class SqliteStore implements Store {
   }
 
   listOutbox(options: { state?: OutboxState; limit?: number } = {}): Promise<OutboxRecord[]> {
-    return this.call(() => {
-      const limit = limitOf(options.limit, 'listOutbox');
-      const rows =
-        options.state === undefined
-          ? this.stmt<OutboxRow>('SELECT * FROM outbox ORDER BY id DESC LIMIT ?').all(limit)
-          : this.stmt<OutboxRow>(
-              'SELECT * FROM outbox WHERE state = ? ORDER BY id DESC LIMIT ?',
-            ).all(options.state, limit);
-      return rows.map(outboxFromRow);
-    });
+    return this.call(() =>
+      this.listNewestFirst<OutboxRow>(
+        'outbox',
+        { 'state = ?': options.state },
+        options.limit,
+        'listOutbox',
+      ).map(outboxFromRow),
+    );
   }
 
   // ---- analyser state ----
@@ -1192,6 +1170,26 @@ export class SqliteStore implements Store {
       this.tagIds.clear();
       throw error;
     }
+  }
+
+  /**
+   * The newest rows of a listing table. `filters` maps a condition with one placeholder to its
+   * value; one left undefined is left out of the SQL, so each combination of given filters gets
+   * its own cached statement.
+   */
+  private listNewestFirst<R>(
+    table: 'quarantine' | 'alerts' | 'outbox',
+    filters: Readonly<Record<string, unknown>>,
+    limit: number | undefined,
+    what: string,
+  ): R[] {
+    const given = Object.entries(filters).filter(([, value]) => value !== undefined);
+    const where =
+      given.length > 0 ? `WHERE ${given.map(([condition]) => condition).join(' AND ')} ` : '';
+    return this.stmt<R>(`SELECT * FROM ${table} ${where}ORDER BY id DESC LIMIT ?`).all(
+      ...given.map(([, value]) => value),
+      limitOf(limit, what),
+    );
   }
 
   private stmt<R = unknown>(sql: string): Database.Statement<unknown[], R> {

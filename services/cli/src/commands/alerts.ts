@@ -1,18 +1,12 @@
-import { parseArgs } from 'node:util';
 import { CAUTION } from '@trueshift/config';
 import { outboxTargets } from '@trueshift/delivery';
 import { TrueshiftError } from '@trueshift/errors';
 import type { AlertRecord, AlertState } from '@trueshift/store';
+import { noMoreArguments, onePositional, parseCommand, showHelp } from '../command-args.js';
 import { wrap } from '../format.js';
 import { EXIT } from '../io.js';
 import type { CliIo, ExitCode } from '../io.js';
-import {
-  maxLength,
-  numberOption,
-  onePositional,
-  positiveInteger,
-  requiredText,
-} from '../options.js';
+import { maxLength, numberOption, positiveInteger, requiredText } from '../options.js';
 import { STORE_NOTE, withStore } from '../store-access.js';
 
 export const ALERTS_HELP = `Usage: trueshift alerts [--state open|acknowledged|cleared] [--tag <tag>] [--limit <n>] [--json]
@@ -78,9 +72,7 @@ export function alertTable(alerts: readonly AlertRecord[], width = 100): string 
 }
 
 export async function alertsCommand(argv: string[], io: CliIo): Promise<ExitCode> {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     allowPositionals: true,
     options: {
       state: { type: 'string' },
@@ -88,16 +80,11 @@ export async function alertsCommand(argv: string[], io: CliIo): Promise<ExitCode
       limit: { type: 'string' },
       json: { type: 'boolean' },
       config: { type: 'string' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${ALERTS_HELP}\n`);
-    return EXIT.ok;
-  }
-  if (positionals.length > 0) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `Unexpected argument "${positionals.join(' ')}".`);
-  }
+  if (args === 'help') return showHelp(io, ALERTS_HELP);
+  const { values, positionals } = args;
+  noMoreArguments(positionals);
   const state = values.state as AlertState | undefined;
   if (state !== undefined && !STATES.includes(state)) {
     throw new TrueshiftError('INVALID_ARGUMENT', '--state must be open, acknowledged or cleared.');
@@ -126,22 +113,17 @@ export async function ackCommand(
   clock: () => number,
   user: () => string,
 ): Promise<ExitCode> {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     allowPositionals: true,
     options: {
       note: { type: 'string' },
       by: { type: 'string' },
       json: { type: 'boolean' },
       config: { type: 'string' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${ACK_HELP}\n`);
-    return EXIT.ok;
-  }
+  if (args === 'help') return showHelp(io, ACK_HELP);
+  const { values, positionals } = args;
   const idText = onePositional(positionals, 'the alert to acknowledge');
   const id = Number(idText);
   if (!/^\d+$/.test(idText) || !positiveInteger(id)) {

@@ -1,7 +1,7 @@
 import { join } from 'node:path';
-import { parseArgs } from 'node:util';
 import { TrueshiftError } from '@trueshift/errors';
 import { analyseText, renderReport } from '../analyse.js';
+import { noMoreArguments, parseCommand, showHelp } from '../command-args.js';
 import { demoPlant } from '../demo-plant.js';
 import { EXIT } from '../io.js';
 import type { CliIo, ExitCode } from '../io.js';
@@ -74,9 +74,7 @@ export async function demoCommand(
   clock: () => number,
   stopSignal: StopSignal,
 ): Promise<ExitCode> {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     allowPositionals: true,
     options: {
       offline: { type: 'boolean' },
@@ -88,16 +86,11 @@ export async function demoCommand(
       duration: { type: 'string' },
       speed: { type: 'string' },
       seed: { type: 'string' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${DEMO_HELP}\n`);
-    return EXIT.ok;
-  }
-  if (positionals.length > 0) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `Unexpected argument "${positionals.join(' ')}".`);
-  }
+  if (args === 'help') return showHelp(io, DEMO_HELP);
+  const { values, positionals } = args;
+  noMoreArguments(positionals);
   const live = ['port', 'broker-port', 'data', 'duration', 'speed', 'seed'] as const;
   // --out and --json only mean something offline, so they ask for it as the demo always did.
   if (values.offline === true || values.out !== undefined || values.json === true) {

@@ -1,14 +1,13 @@
-import { parseArgs } from 'node:util';
 import { periodMeans, resolveTagSettings } from '@trueshift/analyser';
 import { CAUTION } from '@trueshift/config';
 import { TrueshiftError } from '@trueshift/errors';
 import { readEvidence } from '@trueshift/report';
 import type { EvidenceSnapshot, MarkRecord, Store, TagRecord } from '@trueshift/store';
+import { onePositional, parseCommand, showHelp } from '../command-args.js';
 import { evidenceRows, signalTimes, VERDICT_WORDS } from '../evidence-rows.js';
 import { percent, table } from '../format.js';
 import { EXIT } from '../io.js';
 import type { CliIo, ExitCode } from '../io.js';
-import { onePositional } from '../options.js';
 import { STORE_NOTE, withStore } from '../store-access.js';
 
 export const EVIDENCE_HELP = `Usage: trueshift evidence <tag> [--mark <id>] [--json] [--config <file>]
@@ -109,21 +108,16 @@ async function renderOne(store: Store, tag: TagRecord, item: MarkEvidence): Prom
 }
 
 export async function evidenceCommand(argv: string[], io: CliIo): Promise<ExitCode> {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     allowPositionals: true,
     options: {
       mark: { type: 'string' },
       json: { type: 'boolean' },
       config: { type: 'string' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${EVIDENCE_HELP}\n`);
-    return EXIT.ok;
-  }
+  if (args === 'help') return showHelp(io, EVIDENCE_HELP);
+  const { values, positionals } = args;
   const tagName = onePositional(positionals, 'the tag');
   return withStore(values.config, { create: false }, async (store) => {
     const tag = await store.getTag(tagName);

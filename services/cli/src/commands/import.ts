@@ -1,11 +1,10 @@
-import { parseArgs } from 'node:util';
 import { TrueshiftError } from '@trueshift/errors';
 import { importCsvFile } from '@trueshift/ingest';
 import type { CsvImportResult } from '@trueshift/ingest';
+import { onePositional, parseCommand, showHelp } from '../command-args.js';
 import { grouped, table } from '../format.js';
 import { EXIT } from '../io.js';
 import type { CliIo, ExitCode } from '../io.js';
-import { onePositional } from '../options.js';
 import { createProgressBar } from '../progress.js';
 import { STORE_NOTE, withStore } from '../store-access.js';
 
@@ -72,22 +71,17 @@ export async function importCommand(
   io: CliIo,
   clock: () => number,
 ): Promise<ExitCode> {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     allowPositionals: true,
     options: {
       config: { type: 'string' },
       name: { type: 'string' },
       again: { type: 'boolean' },
       json: { type: 'boolean' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${IMPORT_HELP}\n`);
-    return EXIT.ok;
-  }
+  if (args === 'help') return showHelp(io, IMPORT_HELP);
+  const { values, positionals } = args;
   const file = onePositional(positionals, 'the CSV file to import');
   const name = values.name?.trim();
   if (name === '') throw new TrueshiftError('INVALID_ARGUMENT', '--name must not be empty.');

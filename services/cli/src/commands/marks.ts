@@ -1,14 +1,13 @@
-import { parseArgs } from 'node:util';
 import { TrueshiftError } from '@trueshift/errors';
 import { tagNameProblem } from '@trueshift/formats';
 import type { Direction, MarkInput, MarkRecord, Store } from '@trueshift/store';
+import { noMoreArguments, onePositional, parseCommand, showHelp } from '../command-args.js';
 import { EXIT } from '../io.js';
 import type { CliIo, ExitCode } from '../io.js';
 import {
   durationOption,
   maxLength,
   numberOption,
-  onePositional,
   positive,
   positiveInteger,
   requiredText,
@@ -82,9 +81,7 @@ export async function markCommand(
   clock: () => number,
   user: () => string,
 ): Promise<ExitCode> {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     allowPositionals: true,
     options: {
       tag: { type: 'string', multiple: true },
@@ -100,19 +97,11 @@ export async function markCommand(
       by: { type: 'string' },
       config: { type: 'string' },
       json: { type: 'boolean' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${MARK_HELP}\n`);
-    return EXIT.ok;
-  }
-  if (positionals.length > 0) {
-    throw new TrueshiftError(
-      'INVALID_ARGUMENT',
-      `Unexpected argument "${positionals.join(' ')}"; name tags with --tag.`,
-    );
-  }
+  if (args === 'help') return showHelp(io, MARK_HELP);
+  const { values, positionals } = args;
+  noMoreArguments(positionals, '; name tags with --tag');
   const tags = (values.tag ?? []).map((tag) => tag.trim());
   if (tags.length === 0) {
     throw new TrueshiftError('INVALID_ARGUMENT', '--tag is required: the tags the change moves.');
@@ -163,22 +152,17 @@ export async function withdrawCommand(
   clock: () => number,
   user: () => string,
 ): Promise<ExitCode> {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     allowPositionals: true,
     options: {
       reason: { type: 'string' },
       by: { type: 'string' },
       config: { type: 'string' },
       json: { type: 'boolean' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${WITHDRAW_HELP}\n`);
-    return EXIT.ok;
-  }
+  if (args === 'help') return showHelp(io, WITHDRAW_HELP);
+  const { values, positionals } = args;
   const id = onePositional(positionals, 'the mark to withdraw');
   const reason = maxLength(requiredText(values.reason, 'reason', 'why'), 'reason', 2000);
   const by = values.by === undefined ? user() : requiredText(values.by, 'by', 'who withdraws it');

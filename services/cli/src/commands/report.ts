@@ -1,6 +1,6 @@
-import { parseArgs } from 'node:util';
 import { CAUTION } from '@trueshift/config';
 import { TrueshiftError } from '@trueshift/errors';
+import { noMoreArguments, parseCommand, showHelp } from '../command-args.js';
 import { EXIT } from '../io.js';
 import type { CliIo, ExitCode } from '../io.js';
 import { STORE_NOTE, withStore } from '../store-access.js';
@@ -27,20 +27,15 @@ export async function reportCommand(
   io: CliIo,
   clock: () => number,
 ): Promise<ExitCode> {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     allowPositionals: true,
     options: {
       out: { type: 'string' },
       config: { type: 'string' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${REPORT_HELP}\n`);
-    return EXIT.ok;
-  }
+  if (args === 'help') return showHelp(io, REPORT_HELP);
+  const { values, positionals } = args;
   const [markId, tag, ...extra] = positionals;
   if (markId === undefined || tag === undefined) {
     throw new TrueshiftError(
@@ -48,9 +43,7 @@ export async function reportCommand(
       'Name the mark and the tag: report <mark-id> <tag>.',
     );
   }
-  if (extra.length > 0) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `Unexpected argument "${extra.join(' ')}".`);
-  }
+  noMoreArguments(extra);
   const out = values.out;
   if (out?.trim() === '') throw new TrueshiftError('INVALID_ARGUMENT', '--out needs a file name.');
   return withStore(values.config, { create: false }, async (store) => {

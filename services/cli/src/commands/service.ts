@@ -1,8 +1,8 @@
-import { parseArgs } from 'node:util';
 import type { RunningApp } from '@trueshift/app';
 import { TrueshiftError } from '@trueshift/errors';
 import type { TokenScope } from '@trueshift/store';
 import { CAUTION } from '../caution.js';
+import { parseCommand, showHelp } from '../command-args.js';
 import type { CliIo, ExitCode } from '../io.js';
 import { EXIT } from '../io.js';
 import { withStore } from '../store-access.js';
@@ -67,15 +67,9 @@ export async function startCommand(
   io: CliIo,
   stopSignal: StopSignal = processStopSignal,
 ): Promise<ExitCode> {
-  const { values } = parseArgs({
-    args: argv,
-    strict: true,
-    options: { config: { type: 'string' }, help: { type: 'boolean', short: 'h' } },
-  });
-  if (values.help === true) {
-    io.stdout(`${START_HELP}\n`);
-    return EXIT.ok;
-  }
+  const args = parseCommand(argv, { options: { config: { type: 'string' } } });
+  if (args === 'help') return showHelp(io, START_HELP);
+  const { values } = args;
   const { createLogger, loadConfig, startApp } = await import('@trueshift/app');
   const { config, file } = loadConfig(values.config === undefined ? {} : { file: values.config });
   const log = createLogger(config.log);
@@ -98,19 +92,14 @@ export async function startCommand(
 }
 
 export async function checkCommand(argv: string[], io: CliIo): Promise<ExitCode> {
-  const { values } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     options: {
       config: { type: 'string' },
       json: { type: 'boolean' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${CHECK_HELP}\n`);
-    return EXIT.ok;
-  }
+  if (args === 'help') return showHelp(io, CHECK_HELP);
+  const { values } = args;
   const { loadConfig } = await import('@trueshift/app');
   try {
     const { config, file } = loadConfig(values.config === undefined ? {} : { file: values.config });
@@ -138,21 +127,16 @@ export async function tokenCommand(
   io: CliIo,
   clock: () => number,
 ): Promise<ExitCode> {
-  const { values, positionals } = parseArgs({
-    args: argv,
-    strict: true,
+  const args = parseCommand(argv, {
     allowPositionals: true,
     options: {
       name: { type: 'string' },
       scopes: { type: 'string' },
       config: { type: 'string' },
-      help: { type: 'boolean', short: 'h' },
     },
   });
-  if (values.help === true) {
-    io.stdout(`${TOKEN_HELP}\n`);
-    return EXIT.ok;
-  }
+  if (args === 'help') return showHelp(io, TOKEN_HELP);
+  const { values, positionals } = args;
   if (positionals[0] !== 'create' || positionals.length > 1) {
     throw new TrueshiftError('INVALID_ARGUMENT', 'Say "trueshift token create --name <name>".');
   }
