@@ -338,6 +338,38 @@ describe('MQTT ingest', () => {
     expect(second.health().counters.received).toBe(30);
   });
 
+  it('splits a shared subscription over two ingests: every message stored once, each ingest takes a share', async () => {
+    const group = `group${testNumber}`;
+    const a = await startIngest(store, { clientId: `shared-a-${testNumber}`, sharedGroup: group });
+    const b = await startIngest(store, { clientId: `shared-b-${testNumber}`, sharedGroup: group });
+    const pub = await publisher();
+    for (let i = 0; i < 200; i++) {
+      await pub.publishAsync(
+        `${root()}/u${i % 5}/json`,
+        JSON.stringify({ value: i, time: T0 + i }),
+        {
+          qos: 1,
+        },
+      );
+    }
+    const total = async (): Promise<number> => {
+      let n = 0;
+      for (let u = 0; u < 5; u++) n += await store.countSamples(`u${u}.json`);
+      return n;
+    };
+    await waitFor(async () => (await total()) === 200, 'the 200 samples');
+    await waitFor(
+      () => a.health().pending === 0 && b.health().pending === 0,
+      'the acknowledgements',
+    );
+    const toA = a.health().counters.received;
+    const toB = b.health().counters.received;
+    // The broker hands each message to one member of the group: nothing twice, both had a share.
+    expect(toA + toB).toBe(200);
+    expect(Math.min(toA, toB)).toBeGreaterThan(0);
+    expect(await values('u3.json')).toEqual(Array.from({ length: 40 }, (_, i) => i * 5 + 3));
+  });
+
   it('closes cleanly in the middle of a burst: what it took is stored and acknowledged, the rest comes to the next start', async () => {
     const pub = await publisher();
     const first = await startIngest(store, { maxBatch: 20 });
@@ -408,5 +440,13 @@ describe('MQTT ingest', () => {
         options: options({ sessionExpirySec: 0 }),
       }),
     ).toThrow(/session expiry/);
+    expect(() =>
+      buildMqttIngest({
+        store,
+        log,
+        clock,
+        options: options({ protocolVersion: 4, sharedGroup: 'a/b' }),
+      }),
+    ).toThrow(/shared subscriptions need MQTT 5.*must not hold/s);
   });
 });

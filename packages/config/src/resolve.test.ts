@@ -71,6 +71,28 @@ describe('resolveConfig', () => {
     expect(text).toContain('mqtt.subscriptions.0: ');
   });
 
+  it('asks for what PostgreSQL, shared subscriptions and leases each need', () => {
+    const result = resolveConfig({
+      store: { kind: 'postgres' },
+      mqtt: { sharedGroup: 'trueshift' },
+      cluster: { leaseMs: 4000, renewMs: 3000 },
+    });
+    expect(result.ok).toBe(false);
+    if (result.ok) return;
+    expect(result.problems).toEqual([
+      'store.url: a PostgreSQL URL is needed when store.kind is postgres',
+      'mqtt.sharedGroup: shared subscriptions need an external MQTT 5 broker (set mqtt.url)',
+      'cluster.renewMs: must be at most half of cluster.leaseMs',
+    ]);
+    const fine = resolveConfig({
+      store: { kind: 'postgres', url: 'postgres://127.0.0.1:5432/trueshift', shards: 8 },
+      mqtt: { url: 'mqtt://127.0.0.1:1883', sharedGroup: 'trueshift' },
+    });
+    if (!fine.ok) throw new Error(fine.problems.join('\n'));
+    expect(fine.config.store.shards).toBe(8);
+    expect(fine.config.cluster).toEqual({ instance: null, leaseMs: 15_000, renewMs: 3_000 });
+  });
+
   it('refuses a file that is not a mapping', () => {
     expect(resolveConfig(['a'])).toEqual({
       ok: false,

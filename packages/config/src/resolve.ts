@@ -105,6 +105,17 @@ export function resolveConfig(
     if (config.delivery.maxDelayMs < config.delivery.baseDelayMs) {
       problems.push('delivery.maxDelayMs: must not be below delivery.baseDelayMs');
     }
+    if (config.store.kind === 'postgres' && config.store.url === null) {
+      problems.push('store.url: a PostgreSQL URL is needed when store.kind is postgres');
+    }
+    if (config.mqtt.sharedGroup !== null && config.mqtt.url === null) {
+      problems.push(
+        'mqtt.sharedGroup: shared subscriptions need an external MQTT 5 broker (set mqtt.url)',
+      );
+    }
+    if (config.cluster.renewMs * 2 > config.cluster.leaseMs) {
+      problems.push('cluster.renewMs: must be at most half of cluster.leaseMs');
+    }
     config.mqtt.subscriptions.forEach((spec, i) => {
       for (const problem of subscriptionProblems(spec)) {
         problems.push(`mqtt.subscriptions.${i}: ${problem}`);

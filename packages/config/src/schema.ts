@@ -33,7 +33,33 @@ export const ConfigSchema = Type.Object(
   {
     store: Type.Object(
       {
+        kind: Type.Union([Type.Literal('sqlite'), Type.Literal('postgres')], {
+          default: 'sqlite',
+          description: 'sqlite: one process, one file; postgres: one or several instances share it',
+        }),
         path: Type.String({ minLength: 1, default: 'data/trueshift.db' }),
+        url: Type.Union([Type.String({ pattern: '^postgres(ql)?://' }), Type.Null()], {
+          default: null,
+          description: 'PostgreSQL connection URL (kind postgres)',
+        }),
+        shards: Type.Integer({
+          minimum: 1,
+          maximum: 1024,
+          default: 32,
+          description: 'Tags are spread over this many shards; fixed when the database is created',
+        }),
+        poolSize: WholeAtLeast(2, 10, 'PostgreSQL connections per instance'),
+      },
+      { additionalProperties: false, default: {} },
+    ),
+    cluster: Type.Object(
+      {
+        instance: Type.Union([Type.String({ minLength: 1, maxLength: 64 }), Type.Null()], {
+          default: null,
+          description: 'This instance name; null takes the host name and process id',
+        }),
+        leaseMs: WholeAtLeast(1_000, 15_000, 'How long a shard lease lasts without renewal'),
+        renewMs: WholeAtLeast(100, 3_000, 'How often leases are renewed and shared out'),
       },
       { additionalProperties: false, default: {} },
     ),
@@ -78,6 +104,14 @@ export const ConfigSchema = Type.Object(
           default: [{ filter: 'trueshift/samples/#', tag: '{#}', format: 'json' }],
         }),
         alertTopic: Type.String({ minLength: 1, default: 'trueshift/alerts' }),
+        sharedGroup: Type.Union(
+          [Type.String({ minLength: 1, pattern: '^[^/+#]+$' }), Type.Null()],
+          {
+            default: null,
+            description:
+              'Subscribe as $share/<group>/<filter> (MQTT 5) so several instances split the messages',
+          },
+        ),
       },
       { additionalProperties: false, default: {} },
     ),

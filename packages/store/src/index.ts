@@ -1,5 +1,5 @@
 export { QUALITY_GOOD, QUALITY_BAD, QUALITY_STALE } from './types.js';
-export { shardOf } from './shard.js';
+export { fairShare, shardOf } from './shard.js';
 export type {
   AlertChange,
   AlertInput,

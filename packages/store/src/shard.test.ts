@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { shardOf } from './shard.js';
+import { fairShare, shardOf } from './shard.js';
 
 describe('shardOf', () => {
   it('is FNV-1a 32-bit modulo the shard count', () => {
@@ -24,5 +24,20 @@ describe('shardOf', () => {
   it('refuses a shard count that is not a whole number >= 1', () => {
     expect(() => shardOf('x', 0)).toThrow(RangeError);
     expect(() => shardOf('x', 1.5)).toThrow(RangeError);
+  });
+});
+
+describe('fairShare', () => {
+  it('gives every instance an equal share, the remainder to the first by name, summing to all', () => {
+    const alive = ['node-c', 'node-a', 'node-b'];
+    const shares = alive.map((me) => fairShare(32, alive, me));
+    expect(shares).toEqual([10, 11, 11]);
+    expect(shares.reduce((a, b) => a + b, 0)).toBe(32);
+  });
+
+  it('counts this instance even before its heartbeat is seen, and gives a lone instance all', () => {
+    expect(fairShare(8, [], 'solo')).toBe(8);
+    expect(fairShare(8, ['other'], 'solo')).toBe(4);
+    expect(fairShare(2, ['a', 'b', 'c'], 'c')).toBe(0);
   });
 });

@@ -13,3 +13,15 @@ export function shardOf(tag: string, shards: number): number {
   }
   return hash % shards;
 }
+
+/**
+ * How many of `shards` this instance should hold when the instances in `alive` share them: an
+ * equal share each, the remainder going one apiece to the first instances by name. Every instance
+ * computes the same split from the same list, so they settle without talking to each other.
+ */
+export function fairShare(shards: number, alive: readonly string[], me: string): number {
+  const members = [...new Set([...alive, me])].sort();
+  const base = Math.floor(shards / members.length);
+  const extra = shards % members.length;
+  return base + (members.indexOf(me) < extra ? 1 : 0);
+}

@@ -56,13 +56,14 @@ import type {
   WatchState,
 } from '@trueshift/analyser';
 import type { Verdict } from '@trueshift/stats';
-import { TrueshiftError } from '@trueshift/errors';
-import { QUALITY_GOOD } from '@trueshift/store';
+import { isTrueshiftError, TrueshiftError } from '@trueshift/errors';
+import { QUALITY_GOOD, shardOf } from '@trueshift/store';
 import type {
   AlertChange,
   AlertInput,
   AnalyserStateRecord,
   EvidenceSnapshot,
+  LeaseFence,
   MarkRecord,
   OutboxChannel,
   Store,
@@ -89,6 +90,14 @@ export interface AnalyserOptions {
   quarantinePage?: number;
   /** Clears a stale or stuck alert when the tag recovers. */
   clearRecoveredAlerts?: boolean;
+  /**
+   * Follow only the tags of this shard of the store (several instances share the work). The state
+   * is kept under keys of the shard's own, so analysers of different shards never touch each
+   * other's records.
+   */
+  shard?: number;
+  /** The lease this analyser works under: saving fails with LEASE_LOST once another holds it. */
+  fence?: LeaseFence;
 }
 
 export interface AnalyserDeps {
@@ -111,6 +120,8 @@ export interface EvidenceUpdate {
 export interface AnalyserEvents {
   evidence: [EvidenceUpdate];
   alert: [AlertChange];
+  /** Another instance holds the shard now: this analyser has stopped and saved nothing more. */
+  'lease-lost': [LeaseFence];
 }
 
 export interface CycleReport {
@@ -141,11 +152,10 @@ export interface Analyser {
   close(): Promise<void>;
 }
 
-const CURSOR_KEY = 'cursor';
 /** Samples per page when reading a mark's history: about 0.1 s of the event loop each. */
 const HISTORY_PAGE = 100_000;
-const tagKey = (tag: string): string => `tag:${tag}`;
-const markKey = (markId: string, tag: string): string => `mark:${markId}:${tag}`;
+/** A shard's lag is counted up to this many samples; beyond it the answer is "at least". */
+const LAG_COUNT_LIMIT = 10_000;
 
 /** A tag's state as persisted. */
 interface TagState {
@@ -209,6 +219,21 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
   const tagRefreshMs = options.tagRefreshMs ?? 30_000;
   const quarantinePage = options.quarantinePage ?? 500;
   const clearRecovered = options.clearRecoveredAlerts ?? true;
+  const shard = options.shard;
+  const fence = options.fence;
+  if (shard !== undefined && !(Number.isInteger(shard) && shard >= 0 && shard < store.shards)) {
+    throw new TrueshiftError(
+      'CONFIG_INVALID',
+      `shard must be a whole number from 0 to ${store.shards - 1}, got ${shard}.`,
+    );
+  }
+  // Without a shard the keys are those of a single-process store, as saved before shards existed.
+  const prefix = shard === undefined ? '' : `shard:${shard}/${store.shards}:`;
+  const CURSOR_KEY = `${prefix}cursor`;
+  const tagKey = (tag: string): string => `${prefix}tag:${tag}`;
+  const markKey = (markId: string, tag: string): string => `${prefix}mark:${markId}:${tag}`;
+  const mine = (tag: string): boolean =>
+    shard === undefined || shardOf(tag, store.shards) === shard;
   if (!(Number.isInteger(batchSize) && batchSize >= 1)) {
     throw new TrueshiftError(
       'CONFIG_INVALID',
@@ -249,6 +274,7 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
   let wake = false;
   let looping = false;
   let closing = false;
+  let leaseLost = false;
 
   // ---- settings ----
 
@@ -337,9 +363,9 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
     }
     await refreshTags(true);
     tags.clear();
-    for (const record of await store.listAnalyserState('tag:')) {
+    for (const record of await store.listAnalyserState(tagKey(''))) {
       const state = record.state as TagState;
-      const name = record.key.slice('tag:'.length);
+      const name = record.key.slice(tagKey('').length);
       tags.set(name, {
         name,
         settings: settingsOf(name),
@@ -350,7 +376,7 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
     }
     marks.clear();
     savedMarks = new Map(
-      (await store.listAnalyserState('mark:')).map((record) => [record.key, record]),
+      (await store.listAnalyserState(`${prefix}mark:`)).map((record) => [record.key, record]),
     );
     loaded = true;
     log.info({ lastSeq: cursor.lastSeq, tags: tags.size }, 'analyser state loaded');
@@ -377,6 +403,7 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
     const live = new Set<string>();
     for (const mark of allMarks) {
       for (const tag of mark.tags) {
+        if (!mine(tag)) continue;
         const key = markKey(mark.id, tag);
         live.add(key);
         const existing = marks.get(key);
@@ -646,7 +673,7 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
           reachedSeen = true;
           break;
         }
-        entries.push(row);
+        if (row.tag !== null && mine(row.tag)) entries.push(row);
       }
       if (reachedSeen || rows.length < quarantinePage) break;
       beforeId = rows[rows.length - 1]?.id;
@@ -797,7 +824,7 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
     }
     records.push({ key: CURSOR_KEY, state: cursor, lastSeq: cursor.lastSeq, updatedAt: now });
     // One call, one transaction: the states and the cursor they belong to are saved together.
-    await store.saveAnalyserState(records);
+    await store.saveAnalyserState(records, fence);
     for (const runtime of tags.values()) runtime.dirty = false;
     for (const runtime of marks.values()) runtime.dirty = false;
   }
@@ -816,7 +843,7 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
     await ensureLoaded();
     await refreshTags(false);
     await refreshMarks();
-    const batch = await store.samplesAfter(cursor.lastSeq, batchSize);
+    const batch = await store.samplesAfter(cursor.lastSeq, batchSize, shard);
     const ops: AlertOp[] = [];
     for (const sample of batch) {
       if (sample.seq <= cursor.lastSeq) continue;
@@ -893,6 +920,16 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
         try {
           await drain();
         } catch (error) {
+          if (fence !== undefined && isTrueshiftError(error) && error.code === 'LEASE_LOST') {
+            // Going on would only fail again; the new owner resumes from the last saved state.
+            leaseLost = true;
+            closing = true;
+            if (timer !== null) clearInterval(timer);
+            timer = null;
+            log.warn({ shard, epoch: fence.epoch }, 'lease lost; this shard analyser stops');
+            events.emit('lease-lost', fence);
+            return;
+          }
           log.error({ err: error }, 'analyser cycle failed; resuming from the saved state');
         }
       }
@@ -917,7 +954,9 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
     notify,
     drain,
     async lag() {
-      return Math.max(0, (await store.lastSeq()) - cursor.lastSeq);
+      if (shard === undefined) return Math.max(0, (await store.lastSeq()) - cursor.lastSeq);
+      // Seqs are shared by every shard, so only a count of this shard's own says how far behind.
+      return (await store.samplesAfter(cursor.lastSeq, LAG_COUNT_LIMIT, shard)).length;
     },
     processedSeq: () => cursor.lastSeq,
     watchState: (tag) => tags.get(tag)?.state.watch ?? null,
@@ -928,7 +967,7 @@ export function buildAnalyser(deps: AnalyserDeps): Analyser {
       timer = null;
       // The batch under way finishes (drain stops after it), then the state is saved once more.
       await serialised(async () => {
-        if (loaded) await saveState();
+        if (loaded && !leaseLost) await saveState();
       });
     },
   };

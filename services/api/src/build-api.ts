@@ -25,7 +25,7 @@ import { tagRoutes } from './routes/tags.js';
 import { tokenRoutes } from './routes/tokens.js';
 import { validatorCompiler } from './validation.js';
 
-/** The analyser's change feed: an EventEmitter with 'alert' and 'evidence' events will do. */
+/** The change feed: an EventEmitter with 'alert', 'evidence' and (from other instances) 'mark'. */
 export interface ApiEventSource {
   on(event: string, listener: (payload: unknown) => void): unknown;
   off(event: string, listener: (payload: unknown) => void): unknown;
@@ -245,11 +245,18 @@ export async function buildApi(deps: ApiDeps): Promise<FastifyInstance> {
     const onEvidence = (payload: unknown): void => {
       hub.publish('evidence', payload);
     };
+    // Mark changes made through this API are published by its routes; these come from elsewhere
+    // (another instance sharing the database).
+    const onMark = (payload: unknown): void => {
+      hub.publish('mark', payload);
+    };
     source.on('alert', onAlert);
     source.on('evidence', onEvidence);
+    source.on('mark', onMark);
     app.addHook('onClose', () => {
       source.off('alert', onAlert);
       source.off('evidence', onEvidence);
+      source.off('mark', onMark);
     });
   }
   // Streams end first, so clients reconnect elsewhere instead of hanging on a closing server.

@@ -1,10 +1,14 @@
+import type { EventEmitter } from 'node:events';
 import { mkdir } from 'node:fs/promises';
+import { hostname } from 'node:os';
 import { dirname } from 'node:path';
 import { connectAsync } from 'mqtt';
 import type { MqttClient } from 'mqtt';
 import type { Logger } from 'pino';
 import { buildAnalyser } from '@trueshift/analyser-service';
-import type { Analyser } from '@trueshift/analyser-service';
+import type { Analyser, AnalyserOptions } from '@trueshift/analyser-service';
+import { buildCluster } from '@trueshift/cluster';
+import type { Cluster, ClusterEvents } from '@trueshift/cluster';
 import { buildApi, listenApi } from '@trueshift/api';
 import type { ResolvedConfig } from '@trueshift/config';
 import { buildDelivery, outboxTargets } from '@trueshift/delivery';
@@ -12,7 +16,8 @@ import type { Delivery } from '@trueshift/delivery';
 import { buildDropFolder, buildMqttIngest, startEmbeddedBroker } from '@trueshift/ingest';
 import { buildSparkplugIngest } from '@trueshift/sparkplug-ingest';
 import type { DropFolder, EmbeddedBroker, MqttIngest } from '@trueshift/ingest';
-import type { Store } from '@trueshift/store';
+import type { ClusterStore, Store } from '@trueshift/store';
+import { openPostgresStore } from '@trueshift/store-postgres';
 import { openSqliteStore } from '@trueshift/store-sqlite';
 import { registerWeb } from '@trueshift/web';
 import type { FastifyInstance } from 'fastify';
@@ -35,7 +40,12 @@ export interface RunningApp {
   brokerUrl: string;
   embeddedBroker: boolean;
   store: Store;
-  analyser: Analyser;
+  /** The one analyser of a SQLite store; null when instances share shards of a PostgreSQL one. */
+  analyser: Analyser | null;
+  /** Leases and messages between instances (PostgreSQL store); null with SQLite. */
+  cluster: Cluster | null;
+  /** Every alert and evidence change (and, in a cluster, other instances' mark changes). */
+  events: EventEmitter<ClusterEvents>;
   api: FastifyInstance;
   /** Stops taking input, finishes the current batches, saves state and closes everything. */
   close(): Promise<void>;
@@ -74,10 +84,27 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
   };
 
   try {
-    await mkdir(dirname(config.store.path), { recursive: true });
     await mkdir(config.drop.folder, { recursive: true });
-    const store = openSqliteStore({ path: config.store.path });
+    const shared = config.store.kind === 'postgres';
+    const instance = config.cluster.instance ?? hostname();
+    let store: Store;
+    let clusterStore: ClusterStore | null = null;
+    if (config.store.url !== null && shared) {
+      clusterStore = await openPostgresStore({
+        url: config.store.url,
+        shards: config.store.shards,
+        instance,
+        poolSize: config.store.poolSize,
+      });
+      store = clusterStore;
+    } else {
+      await mkdir(dirname(config.store.path), { recursive: true });
+      store = openSqliteStore({ path: config.store.path });
+    }
     closers.push({ name: 'store', close: () => store.close() });
+    // Instances sharing a database each keep their own broker session, so each needs its own id;
+    // the same instance name after a restart resumes the same session.
+    const clientId = (base: string): string => (shared ? `${base}-${instance}` : base);
 
     let broker: EmbeddedBroker | null = null;
     if (config.mqtt.url === null) {
@@ -90,29 +117,55 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
     // The embedded broker speaks MQTT 3.1.1 only; a persistent session there is clean: false.
     const protocolVersion = broker === null ? 5 : 4;
 
-    const analyser = buildAnalyser({
-      store,
-      log: log.child({ part: 'analyser' }),
-      clock,
-      options: {
-        pollMs: config.analysis.pollMs,
-        alertTargets: outboxTargets(config, clock()),
-        defaults: {
-          riskLevel: config.analysis.riskLevel,
-          nBefore: config.analysis.nBefore,
-          alertAfter: config.analysis.alertAfter,
-          inControlArl: config.analysis.inControlArl,
-          cusumK: config.analysis.cusumK,
-          ewmaLambda: config.analysis.ewmaLambda,
-          staleAfterIntervals: config.analysis.staleAfterIntervals,
-          stuckAfter: config.analysis.stuckAfter,
-        },
+    const analyserOptions: AnalyserOptions = {
+      pollMs: config.analysis.pollMs,
+      alertTargets: outboxTargets(config, clock()),
+      defaults: {
+        riskLevel: config.analysis.riskLevel,
+        nBefore: config.analysis.nBefore,
+        alertAfter: config.analysis.alertAfter,
+        inControlArl: config.analysis.inControlArl,
+        cusumK: config.analysis.cusumK,
+        ewmaLambda: config.analysis.ewmaLambda,
+        staleAfterIntervals: config.analysis.staleAfterIntervals,
+        stuckAfter: config.analysis.stuckAfter,
       },
-    });
-    closers.push({ name: 'analyser', close: () => analyser.close() });
+    };
+    let analyser: Analyser | null = null;
+    let cluster: Cluster | null = null;
+    let events: EventEmitter<ClusterEvents>;
+    if (clusterStore !== null) {
+      const built = buildCluster({
+        store: clusterStore,
+        log: log.child({ part: 'cluster', instance }),
+        clock,
+        timers: realTimers,
+        options: { leaseMs: config.cluster.leaseMs, renewMs: config.cluster.renewMs },
+        makeAnalyser: (shard, fence) =>
+          buildAnalyser({
+            store: clusterStore,
+            log: log.child({ part: 'analyser', shard }),
+            clock,
+            options: { ...analyserOptions, shard, fence },
+          }),
+      });
+      cluster = built;
+      events = built.events;
+      closers.push({ name: 'cluster', close: () => built.close() });
+    } else {
+      const single = buildAnalyser({
+        store,
+        log: log.child({ part: 'analyser' }),
+        clock,
+        options: analyserOptions,
+      });
+      analyser = single;
+      events = single.events as unknown as EventEmitter<ClusterEvents>;
+      closers.push({ name: 'analyser', close: () => single.close() });
+    }
 
     const publisher: MqttClient = await connectAsync(brokerUrl, {
-      clientId: `${config.mqtt.clientId}-alerts`,
+      clientId: `${clientId(config.mqtt.clientId)}-alerts`,
       protocolVersion,
       reconnectPeriod: config.mqtt.reconnectMinMs,
       ...(config.mqtt.username === undefined ? {} : { username: config.mqtt.username }),
@@ -129,6 +182,7 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
       publishMqtt: async (topic, payload) => {
         await publisher.publishAsync(topic, payload, { qos: 1 });
       },
+      ...(cluster === null ? {} : { active: () => cluster.owned().includes(0) }),
     });
     closers.push({ name: 'delivery', close: () => delivery.stop() });
 
@@ -138,8 +192,9 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
       clock,
       options: {
         url: brokerUrl,
-        clientId: config.mqtt.clientId,
+        clientId: clientId(config.mqtt.clientId),
         protocolVersion,
+        ...(config.mqtt.sharedGroup === null ? {} : { sharedGroup: config.mqtt.sharedGroup }),
         ...(config.mqtt.username === undefined ? {} : { username: config.mqtt.username }),
         ...(config.mqtt.password === undefined ? {} : { password: config.mqtt.password }),
         sessionExpirySec: config.mqtt.sessionExpirySec,
@@ -166,7 +221,7 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
       config,
       clock,
       log: log.child({ part: 'api' }),
-      events: analyser.events,
+      events,
       wakeDelivery: () => {
         delivery.wake();
       },
@@ -175,7 +230,7 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
         return {
           // Connected but failing to store is not ready either: nothing is being acknowledged.
           ingest: { connected: mqtt.connected && mqtt.healthy, detail: mqtt.lastError },
-          analyser: { lag: await analyser.lag() },
+          analyser: { lag: (await (cluster ?? analyser)?.lag()) ?? 0 },
         };
       },
     });
@@ -183,7 +238,8 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
     await deps.extend?.(api, { store, clock });
     closers.push({ name: 'api', close: () => api.close() });
 
-    analyser.start();
+    analyser?.start();
+    await cluster?.start();
     delivery.start();
     await ingest.start();
     closers.push({ name: 'mqtt ingest', close: () => ingest.close() });
@@ -197,7 +253,7 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
         clock,
         options: {
           url: brokerUrl,
-          clientId: config.sparkplug.clientId,
+          clientId: clientId(config.sparkplug.clientId),
           groups: config.sparkplug.groups,
           tagTemplate: config.sparkplug.tagTemplate,
           protocolVersion,
@@ -208,7 +264,8 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
         },
       });
       sparkplug.events.on('stale-tags', () => {
-        analyser.notify();
+        analyser?.notify();
+        cluster?.notify();
       });
       await sparkplug.start();
       closers.push({ name: 'sparkplug ingest', close: () => sparkplug.close() });
@@ -223,6 +280,8 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
       embeddedBroker: broker !== null,
       store,
       analyser,
+      cluster,
+      events,
       api,
       close: () => (closed ??= closeAll()),
     };

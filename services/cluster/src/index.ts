@@ -1,1 +1,9 @@
-export const placeholder = 1;
+export { buildCluster } from './cluster.js';
+export type {
+  Cluster,
+  ClusterDeps,
+  ClusterEvents,
+  ClusterOptions,
+  ClusterTimers,
+  MarkChange,
+} from './cluster.js';

@@ -27,6 +27,11 @@ export interface DeliveryDeps {
   requestTimeoutMs?: number;
   /** Entries attempted at once; 8 by default. */
   concurrency?: number;
+  /**
+   * Whether this process delivers now. Instances sharing one database leave delivery to one of
+   * them (the holder of shard 0), so two never send the same entry at once.
+   */
+  active?: () => boolean;
 }
 
 export interface DrainResult {
@@ -206,6 +211,7 @@ export function buildDelivery(deps: DeliveryDeps): Delivery {
 
   async function drain(): Promise<DrainResult> {
     const result: DrainResult = { attempted: 0, delivered: 0, retrying: 0, dead: 0 };
+    if (deps.active?.() === false) return result;
     const now = clock();
     const due = await store.dueOutbox(now, BATCH);
     const queue = due.filter((entry) => {

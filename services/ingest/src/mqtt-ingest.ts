@@ -38,6 +38,11 @@ export interface MqttIngestOptions {
   /** MQTT 5 session expiry: how long the broker keeps the session and its messages while we are away. */
   sessionExpirySec: number;
   subscriptions: readonly SubscriptionSpec[];
+  /**
+   * Subscribe as $share/<group>/<filter> (MQTT 5): the broker hands each message to one of the
+   * group's instances. Order across instances is lost; samples carry their own times.
+   */
+  sharedGroup?: string;
   maxFutureMs: number;
   maxPayloadBytes: number;
   reconnectMinMs: number;
@@ -204,6 +209,12 @@ function checkOptions(options: MqttIngestOptions): void {
     // With no session expiry the broker drops unacknowledged messages when the connection ends,
     // and a failed store write would lose them instead of having them redelivered.
     problems.push('the session expiry must be more than 0 s, or messages are lost on reconnect.');
+  }
+  if (options.sharedGroup !== undefined && (options.protocolVersion ?? 5) !== 5) {
+    problems.push('shared subscriptions need MQTT 5.');
+  }
+  if (options.sharedGroup !== undefined && /[/+#]/.test(options.sharedGroup)) {
+    problems.push('the shared group name must not hold /, + or #.');
   }
   const maxInFlight = options.maxInFlight ?? 2000;
   if (!Number.isInteger(maxInFlight) || maxInFlight < 1 || maxInFlight > 65_535) {
@@ -563,7 +574,11 @@ export function buildMqttIngest(deps: MqttIngestDeps): MqttIngest {
     for (const spec of options.subscriptions) {
       // MQTT 5 retain handling 1: retained messages only for a subscription that is new to the
       // broker, so subscribing again over a resumed session replays nothing.
-      map[spec.filter] = protocolVersion === 5 ? { qos: 1, rh: 1 } : { qos: 1 };
+      const filter =
+        options.sharedGroup === undefined
+          ? spec.filter
+          : `$share/${options.sharedGroup}/${spec.filter}`;
+      map[filter] = protocolVersion === 5 ? { qos: 1, rh: 1 } : { qos: 1 };
     }
     current.subscribe(map, (error, granted) => {
       subscribing = false;

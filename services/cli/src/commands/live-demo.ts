@@ -182,7 +182,7 @@ async function placeMark(
 function narrate(app: RunningApp, io: CliIo, clock: () => number, liveStart: number): void {
   const verdicts = new Map<string, string>();
   const stamp = (): string => `[${clockText(clock() - liveStart)}]`;
-  app.analyser.events.on('evidence', (update) => {
+  app.events.on('evidence', (update) => {
     const key = `${update.markId}:${update.tag}`;
     if (verdicts.get(key) === update.verdict) return;
     verdicts.set(key, update.verdict);
@@ -190,7 +190,7 @@ function narrate(app: RunningApp, io: CliIo, clock: () => number, liveStart: num
       `${stamp()} ${update.tag}: ${VERDICT_WORDS[update.verdict]} (${valuesAfter(update.nAfter)}${risk(update.snapshot.body)})\n`,
     );
   });
-  app.analyser.events.on('alert', (change: AlertChange) => {
+  app.events.on('alert', (change: AlertChange) => {
     if (change.change !== 'opened') return;
     io.stdout(
       `${stamp()} alert ${change.alert.id} opened (${change.alert.kind}): ${change.alert.title}\n`,
