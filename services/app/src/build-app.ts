@@ -1,7 +1,5 @@
 import type { EventEmitter } from 'node:events';
 import { mkdir } from 'node:fs/promises';
-import { hostname } from 'node:os';
-import { dirname } from 'node:path';
 import { connectAsync } from 'mqtt';
 import type { MqttClient } from 'mqtt';
 import type { Logger } from 'pino';
@@ -16,11 +14,10 @@ import type { Delivery } from '@trueshift/delivery';
 import { buildDropFolder, buildMqttIngest, startEmbeddedBroker } from '@trueshift/ingest';
 import { buildSparkplugIngest } from '@trueshift/sparkplug-ingest';
 import type { DropFolder, EmbeddedBroker, MqttIngest } from '@trueshift/ingest';
-import type { ClusterStore, Store } from '@trueshift/store';
-import { openPostgresStore } from '@trueshift/store-postgres';
-import { openSqliteStore } from '@trueshift/store-sqlite';
+import type { Store } from '@trueshift/store';
 import { registerWeb } from '@trueshift/web';
 import type { FastifyInstance } from 'fastify';
+import { instanceName, openConfiguredStore } from './open-store.js';
 
 export interface AppDeps {
   config: ResolvedConfig;
@@ -85,22 +82,9 @@ export async function startApp(deps: AppDeps): Promise<RunningApp> {
 
   try {
     await mkdir(config.drop.folder, { recursive: true });
-    const shared = config.store.kind === 'postgres';
-    const instance = config.cluster.instance ?? hostname();
-    let store: Store;
-    let clusterStore: ClusterStore | null = null;
-    if (config.store.url !== null && shared) {
-      clusterStore = await openPostgresStore({
-        url: config.store.url,
-        shards: config.store.shards,
-        instance,
-        poolSize: config.store.poolSize,
-      });
-      store = clusterStore;
-    } else {
-      await mkdir(dirname(config.store.path), { recursive: true });
-      store = openSqliteStore({ path: config.store.path });
-    }
+    const instance = instanceName(config);
+    const { store, shared: clusterStore } = await openConfiguredStore(config, instance);
+    const shared = clusterStore !== null;
     closers.push({ name: 'store', close: () => store.close() });
     // Instances sharing a database each keep their own broker session, so each needs its own id;
     // the same instance name after a restart resumes the same session.
