@@ -129,7 +129,7 @@ function abuses(limit: number): Abuse[] {
     {
       method: 'POST',
       url: `/api/v1/alerts/${String(alertId)}/clear`,
-      // The route takes no body and ignores one, so only access is abused here.
+      // The body is optional (a note at most), so the bare POST is the good request here.
       good: undefined,
       scope: 'write',
     },
@@ -282,6 +282,13 @@ function abuses(limit: number): Abuse[] {
       'POST',
       `/api/v1/alerts/${String(alertId)}/acknowledge`,
       { note: 5 },
+      400,
+    ),
+    writes(
+      'a clearing with an SQL field beside its note',
+      'POST',
+      `/api/v1/alerts/${String(alertId)}/clear`,
+      { note: 'n', state: `open'; --` },
       400,
     ),
     writes(

@@ -552,6 +552,62 @@ describe('API routes through inject', () => {
         'EVIDENCE_NOT_FOUND',
       );
     });
+
+    it('answers a repeated reference request from memory until a new snapshot, a correction or another mark', async () => {
+      const { id } = await markWithEvidence();
+      const url = `/api/v1/marks/${id}/evidence/steam/reference`;
+      const first = await get(url);
+      expect(first.statusCode).toBe(200);
+      expect(body(first).nHistory).toBe(120);
+
+      // A back-filled sample before the mark changes the history, but without a new evaluation
+      // the cached answer stands: the same body proves it was not rebuilt from the store.
+      const start = T0 - 200 * MINUTE;
+      await api.store.writeSamples(samples('steam', [10.5], start - MINUTE));
+      const second = await get(url);
+      expect(second.statusCode).toBe(200);
+      expect(body(second)).toEqual(body(first));
+      // Another query is another answer, built from the store as it is now.
+      expect(body(await get(`${url}?maxPoints=10`)).nHistory).toBe(121);
+
+      // The analyser judging again (a new snapshot) gives a fresh answer.
+      const { mark } = body(await get(`/api/v1/marks/${id}`)) as { mark: { at: number } };
+      await api.store.addEvidenceSnapshot({
+        markId: id,
+        tag: 'steam',
+        sampleTime: mark.at + 12 * MINUTE,
+        evaluatedAt: T0 + 13,
+        nAfter: 13,
+        risk: 0.5,
+        verdict: 'still-gathering',
+        body: { nAfter: 13 },
+      });
+      const third = body(await get(url));
+      expect(third).not.toEqual(body(first));
+      expect(third).toMatchObject({ nHistory: 121, nAfter: 13, differences: 121 - 30 - 13 + 1 });
+      expect(body(await get(url))).toEqual(third);
+
+      // So does a correction of the mark (a new revision), with no new snapshot.
+      await api.store.writeSamples(samples('steam', [9.5], start - 2 * MINUTE));
+      expect(body(await get(url)).nHistory).toBe(121);
+      const corrected = await send('PATCH', `/api/v1/marks/${id}`, {
+        label: 'trap, renamed',
+        reason: 'typo',
+      });
+      expect(corrected.statusCode).toBe(200);
+      expect(body(await get(url)).nHistory).toBe(122);
+
+      // And so does an earlier mark whose settling period takes 5 samples out of the history.
+      const earlier = await send('POST', '/api/v1/marks', {
+        tags: ['steam'],
+        at: start + 9.5 * MINUTE,
+        label: 'earlier',
+        direction: 'rise',
+        settlingMs: 5 * MINUTE,
+      });
+      expect(earlier.statusCode).toBe(201);
+      expect(body(await get(url)).nHistory).toBe(117);
+    });
   });
 
   describe('alerts, quarantine, outbox, tokens, config', () => {
@@ -619,6 +675,98 @@ describe('API routes through inject', () => {
       );
       expect(new Set(outbox.map((e) => e.target))).toEqual(new Set([api.config.mqtt.alertTopic]));
       expectError(await get('/api/v1/outbox?state=lost', 'admin'), 'REQUEST_INVALID');
+    });
+
+    it('clears with an optional JSON note, and with no body and no Content-Type at all', async () => {
+      const raise = async (tag: string): Promise<number> =>
+        (
+          await api.store.raiseAlert(
+            {
+              tag,
+              markId: null,
+              kind: 'stale',
+              dedupeKey: `stale:${tag}`,
+              title: `${tag}: no sample`,
+              at: T0,
+              evidence: { silentForMs: 1 },
+            },
+            targets,
+          )
+        ).alert.id;
+      const withNote = await raise('steam');
+      const bare = await raise('brix');
+      const empty = await raise('flow');
+      const overSocket = await raise('level');
+      const clear = (id: number, init: { payload?: string; headers?: Record<string, string> }) =>
+        api.app.inject({
+          method: 'POST',
+          url: `/api/v1/alerts/${String(id)}/clear`,
+          headers: { ...api.as('write'), ...init.headers },
+          ...(init.payload === undefined ? {} : { payload: init.payload }),
+        });
+      const state = async (id: number) =>
+        (body(await get(`/api/v1/alerts/${String(id)}`)).alert as { state: string }).state;
+
+      // Refused bodies leave the alert as it was.
+      const refusals = [
+        JSON.stringify({ note: '' }),
+        JSON.stringify({ note: 5 }),
+        JSON.stringify({ note: 'x'.repeat(2001) }),
+        JSON.stringify({ note: 'ok', reason: 'extra' }),
+      ];
+      for (const payload of refusals) {
+        expectError(
+          await clear(withNote, { payload, headers: { 'content-type': 'application/json' } }),
+          'REQUEST_INVALID',
+        );
+      }
+      expectError(
+        await clear(withNote, {
+          payload: '{"note":',
+          headers: { 'content-type': 'application/json' },
+        }),
+        'PAYLOAD_NOT_JSON',
+      );
+      expect(await state(withNote)).toBe('open');
+
+      api.now.t = T0 + 200;
+      const noted = await clear(withNote, {
+        payload: JSON.stringify({ note: 'Trap replaced on the night shift' }),
+        headers: { 'content-type': 'application/json' },
+      });
+      expect(noted.statusCode).toBe(200);
+      expect(body(noted)).toMatchObject({
+        change: 'cleared',
+        alert: { id: withNote, state: 'cleared', clearedAt: T0 + 200 },
+      });
+
+      // No body and no Content-Type, as `curl -X POST` sends it.
+      const bodiless = await clear(bare, {});
+      expect(bodiless.headers['content-type']).toContain('application/json');
+      expect(bodiless.statusCode).toBe(200);
+      expect(body(bodiless)).toMatchObject({ change: 'cleared', alert: { id: bare } });
+      // An empty JSON object is a body without a note.
+      const emptyObject = await clear(empty, {
+        payload: '{}',
+        headers: { 'content-type': 'application/json' },
+      });
+      expect(body(emptyObject)).toMatchObject({ change: 'cleared', alert: { id: empty } });
+
+      // The same over a real socket: fetch sends Content-Length: 0 and no Content-Type.
+      const base = await api.listen();
+      const overHttp = await fetch(`${base}/api/v1/alerts/${String(overSocket)}/clear`, {
+        method: 'POST',
+        headers: api.as('write'),
+      });
+      expect(overHttp.status).toBe(200);
+      expect(await overHttp.json()).toMatchObject({
+        change: 'cleared',
+        alert: { id: overSocket, state: 'cleared' },
+      });
+
+      const states = await Promise.all([withNote, bare, empty, overSocket].map(state));
+      expect(states).toEqual(['cleared', 'cleared', 'cleared', 'cleared']);
+      expectError(await clear(bare, {}), 'ALERT_CLEARED');
     });
 
     it('pages the quarantine newest first with its reasons', async () => {

@@ -35,6 +35,16 @@ describe('config/trueshift.example.yaml', () => {
   });
 });
 
+describe('config/trueshift.instance.example.yaml', () => {
+  it('is a valid setting for one of several instances on PostgreSQL and a shared subscription', () => {
+    const instance = resolveConfig(parse(read('config/trueshift.instance.example.yaml')));
+    if (!instance.ok) throw new Error(instance.problems.join('\n'));
+    expect(instance.config.store.kind).toBe('postgres');
+    expect(instance.config.mqtt.sharedGroup).toBe('trueshift');
+    expect(instance.config.cluster.instance).toBe('trueshift-1');
+  });
+});
+
 describe('docker-compose.yml', () => {
   const compose = parse(read('docker-compose.yml')) as ComposeFile;
 

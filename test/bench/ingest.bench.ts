@@ -1,8 +1,8 @@
 /**
  * Speed of the ingest: QoS 1 single-value MQTT messages per second through the MQTT ingest into a
  * SQLite store, beside a bare mqtt.js subscriber that acknowledges at once and stores nothing,
- * measured against the same spawned mosquitto in the same run; and rows per second of a 10^6-row
- * long CSV file into the store, beside one plain line-by-line read of the same file.
+ * measured against the same spawned mosquitto in the same run. CSV files (the drop folder and
+ * `trueshift import` share `importCsvFile`) are measured in import.bench.ts.
  *
  * Each MQTT run queues N messages for an offline persistent session first and then times the
  * subscriber draining them, so both subscribers see the same broker work and no publisher competes
@@ -11,34 +11,23 @@
  *
  * Run with `npm run build && npx tsx test/bench/ingest.bench.ts`.
  */
-import { createReadStream, mkdtempSync, rmSync, writeFileSync } from 'node:fs';
-import { cpus, tmpdir, totalmem } from 'node:os';
+import { mkdtempSync, rmSync } from 'node:fs';
+import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { createInterface } from 'node:readline';
-import { fileURLToPath } from 'node:url';
 import { connect, connectAsync, type IClientOptions, type MqttClient } from 'mqtt';
 import { pino } from 'pino';
 import { parseMqttMessage, type SubscriptionSpec } from '@trueshift/formats';
-import { buildMqttIngest, importCsvFile } from '@trueshift/ingest';
+import { buildMqttIngest } from '@trueshift/ingest';
 import type { SampleInput } from '@trueshift/store';
 import { openSqliteStore } from '@trueshift/store-sqlite';
 import { startMosquitto } from '../helpers/mosquitto.js';
+import { benchReport, machineLine, median } from './bench-kit.js';
 
 const MESSAGES = Number(process.env.BENCH_MQTT_MESSAGES ?? 50_000);
 const MQTT_RUNS = Number(process.env.BENCH_MQTT_RUNS ?? 7);
-const CSV_ROWS = Number(process.env.BENCH_CSV_ROWS ?? 1_000_000);
-const CSV_RUNS = Number(process.env.BENCH_CSV_RUNS ?? 3);
 const T0 = Date.UTC(2026, 0, 1);
 // About what the ingest commits at a time while draining a queue on this machine (10 ms window).
 const PARTS_BATCH = 300;
-
-function median(values: readonly number[]): number {
-  const sorted = [...values].sort((a, b) => a - b);
-  const mid = sorted.length >> 1;
-  return sorted.length % 2 === 1
-    ? (sorted[mid] ?? Number.NaN)
-    : ((sorted[mid - 1] ?? 0) + (sorted[mid] ?? 0)) / 2;
-}
 
 function until(check: () => boolean, timeoutMs: number): Promise<void> {
   return new Promise((resolve, reject) => {
@@ -52,11 +41,8 @@ function until(check: () => boolean, timeoutMs: number): Promise<void> {
   });
 }
 
-const lines: string[] = [];
-const say = (line: string): void => {
-  console.log(line);
-  lines.push(line);
-};
+const report = benchReport('ingest');
+const { say } = report;
 
 const work = mkdtempSync(join(tmpdir(), 'trueshift-bench-ingest-'));
 const broker = await startMosquitto();
@@ -173,56 +159,11 @@ async function partsRun(run: number): Promise<{ parse: number; store: number }> 
   return { parse, store: write };
 }
 
-function writeLongCsv(path: string, rows: number): void {
-  const chunks: string[] = ['time,tag,value,quality\n'];
-  let chunk = '';
-  for (let i = 0; i < rows; i++) {
-    chunk += `${new Date(T0 - (rows - i) * 1000).toISOString()},unit${i % 10}.flow,${(i % 997) * 0.125},192\n`;
-    if (chunk.length > 1 << 20) {
-      chunks.push(chunk);
-      chunk = '';
-    }
-  }
-  chunks.push(chunk);
-  writeFileSync(path, chunks.join(''));
-}
-
-async function plainReadRowsPerSecond(path: string): Promise<number> {
-  const start = performance.now();
-  let count = 0;
-  for await (const line of createInterface({
-    input: createReadStream(path, 'utf8'),
-    crlfDelay: Infinity,
-  })) {
-    if (line.length > 0) count++;
-  }
-  return (count - 1) / ((performance.now() - start) / 1000);
-}
-
-async function csvRun(path: string, run: number): Promise<number> {
-  const store = openSqliteStore({ path: join(work, `csv-${run}.db`) });
-  const start = performance.now();
-  const result = await importCsvFile(path, {
-    store,
-    clock: () => T0,
-    options: { maxFutureMs: 60_000, name: `bench-${run}.csv` },
-  });
-  const seconds = (performance.now() - start) / 1000;
-  await store.close();
-  if (result.stored !== CSV_ROWS) throw new Error(`stored ${result.stored} of ${CSV_ROWS} rows`);
-  return CSV_ROWS / seconds;
-}
-
 try {
-  const cpu = cpus()[0]?.model ?? 'unknown CPU';
   say('# Ingest benchmark');
   say('');
-  say(
-    `Machine: ${cpu}, ${cpus().length} cores, ${(totalmem() / 2 ** 30).toFixed(0)} GiB, Node.js ${process.version}; ${new Date().toISOString()}.`,
-  );
-  say(
-    `Broker: mosquitto (spawned on loopback). Medians of ${MQTT_RUNS} MQTT runs and ${CSV_RUNS} CSV runs.`,
-  );
+  say(machineLine());
+  say(`Broker: mosquitto (spawned on loopback). Medians of ${MQTT_RUNS} MQTT runs.`);
   say('');
 
   const bare: number[] = [];
@@ -279,34 +220,10 @@ try {
     );
   }
   say('');
-
-  const csvPath = join(work, 'long.csv');
-  writeLongCsv(csvPath, CSV_ROWS);
-  const plain: number[] = [];
-  const imported: number[] = [];
-  const csvRatios: number[] = [];
-  for (let run = 0; run < CSV_RUNS; run++) {
-    const p = await plainReadRowsPerSecond(csvPath);
-    const r = await csvRun(csvPath, run);
-    plain.push(p);
-    imported.push(r);
-    csvRatios.push(r / p);
-    console.log(
-      `  run ${run + 1}: plain read ${p.toFixed(0)} rows/s, import ${r.toFixed(0)} rows/s`,
-    );
-  }
-  say(`## CSV drop file, long layout (${CSV_ROWS.toLocaleString('en')} rows, 10 tags)`);
-  say('');
-  say('| pass | rows per second | ratio to plain read |');
-  say('| --- | ---: | ---: |');
-  say(`| plain line-by-line read (readline) | ${median(plain).toFixed(0)} | 1.00 |`);
   say(
-    `| importCsvFile into SQLite (hash, checks, 5,000-row transactions) | ${median(imported).toFixed(0)} | ${median(csvRatios).toFixed(2)} |`,
+    'CSV files (the drop folder and `trueshift import` both go through `importCsvFile`): see [import.md](import.md).',
   );
-
-  const out = fileURLToPath(new URL('./results/ingest.md', import.meta.url));
-  writeFileSync(out, `${lines.join('\n')}\n`);
-  console.log(`\nWritten to ${out}`);
+  report.write();
 } finally {
   await broker.dispose();
   rmSync(work, { recursive: true, force: true });

@@ -13,6 +13,7 @@ import { fileURLToPath } from 'node:url';
 import Database from 'better-sqlite3';
 import type { SampleInput } from '@trueshift/store';
 import { openSqliteStore } from '@trueshift/store-sqlite';
+import { bareDatabase, median } from './bench-kit.js';
 
 const BATCH = 500;
 const WRITE_TOTAL = 100_000;
@@ -21,14 +22,6 @@ const WRITE_RUNS = 5;
 const READ_N = 1_000_000;
 const READ_RUNS = 7;
 const T0 = Date.UTC(2026, 0, 1);
-
-function median(values: number[]): number {
-  const sorted = [...values].sort((a, b) => a - b);
-  const mid = sorted.length >> 1;
-  return sorted.length % 2 === 1
-    ? (sorted[mid] ?? Number.NaN)
-    : ((sorted[mid - 1] ?? 0) + (sorted[mid] ?? 0)) / 2;
-}
 
 function elapsedMs(work: () => void): number {
   const start = process.hrtime.bigint();
@@ -40,14 +33,6 @@ async function elapsedMsAsync(work: () => Promise<void>): Promise<number> {
   const start = process.hrtime.bigint();
   await work();
   return Number(process.hrtime.bigint() - start) / 1e6;
-}
-
-/** The same pragmas as the store, so the baseline differs only in what it does per row. */
-function bareDatabase(path: string): Database.Database {
-  const db = new Database(path);
-  db.pragma('journal_mode = WAL');
-  db.pragma('synchronous = NORMAL');
-  return db;
 }
 
 /** Round-robin over the tags, one sample per tag per minute, as a plant's scan would arrive. */

@@ -231,10 +231,12 @@ export const AlertListQuery = Type.Object(
   closed,
 );
 
-export const AcknowledgeBody = Type.Object(
-  { note: Type.String({ minLength: 1, maxLength: 2000 }) },
-  closed,
-);
+const AlertNote = Type.String({ minLength: 1, maxLength: 2000 });
+
+export const AcknowledgeBody = Type.Object({ note: AlertNote }, closed);
+
+/** The route reads an absent body (a bare POST, no Content-Type) as this object with no note. */
+export const ClearBody = Type.Object({ note: Type.Optional(AlertNote) }, closed);
 
 export const AlertChange = Type.Object({
   change: Type.Union([

@@ -12,6 +12,7 @@ import {
   AlertIdParams,
   AlertListQuery,
   Caution,
+  ClearBody,
   errors,
 } from '../schemas.js';
 
@@ -103,20 +104,37 @@ export function alertRoutes(app: ApiApp, ctx: ApiContext): void {
     '/alerts/:id/clear',
     {
       config: { scope: 'write' },
+      // Fastify validates an absent body as undefined, which no object schema accepts; a bare POST
+      // (no Content-Type, nothing sent) means "no note", so it is validated as an empty object.
+      preValidation: (request, _reply, done) => {
+        if ((request.body as { note?: string } | undefined) === undefined) request.body = {};
+        done();
+      },
       schema: {
         summary: 'Clear an alert: the condition is dealt with',
-        description: 'A later occurrence of the same condition opens a new alert.',
+        description:
+          'A later occurrence of the same condition opens a new alert. The body is optional: a note saying why (written to the service log) or nothing at all.',
         tags: ['alerts'],
         params: AlertIdParams,
+        body: ClearBody,
         response: {
           200: Type.Composite([Type.Object({ caution: Caution }), AlertChange]),
-          ...errors(400, 401, 403, 404, 409, 429),
+          ...errors(400, 401, 403, 404, 409, 413, 429),
         },
       },
     },
     async (request) => {
       const now = clock();
       const change = await store.clearAlert(request.params.id, now, outboxTargets(config, now));
+      const { note } = request.body;
+      // The store keeps one note per alert, the acknowledgement's; until it keeps a clearing note
+      // too, the service log is where the reason for clearing is found again.
+      if (note !== undefined) {
+        request.log.info(
+          { alertId: change.alert.id, by: actorOf(request.caller), note },
+          'alert cleared with a note',
+        );
+      }
       return announce(change);
     },
   );
