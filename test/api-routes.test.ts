@@ -737,7 +737,12 @@ describe('API routes through inject', () => {
       expect(noted.statusCode).toBe(200);
       expect(body(noted)).toMatchObject({
         change: 'cleared',
-        alert: { id: withNote, state: 'cleared', clearedAt: T0 + 200 },
+        alert: {
+          id: withNote,
+          state: 'cleared',
+          clearedAt: T0 + 200,
+          note: 'Trap replaced on the night shift',
+        },
       });
 
       // No body and no Content-Type, as `curl -X POST` sends it.

@@ -671,6 +671,8 @@ export function describeStoreContract(name: string, open: () => Promise<OpenedSt
           clearedAt: T0 + 5 * MINUTE,
           repeats: 2,
         });
+        // Cleared without a note of its own: the acknowledgement's note stays.
+        expect(cleared.alert.note).toBe(acked.alert.note);
         expect((await store.listOutbox()).map((e) => e.idempotencyKey)).toEqual([
           `alert:${opened.id}:cleared:2`,
           `alert:${opened.id}:acknowledged:1`,
@@ -693,6 +695,13 @@ export function describeStoreContract(name: string, open: () => Promise<OpenedSt
         expect(reopened.change).toBe('opened');
         expect(reopened.alert.id).not.toBe(opened.id);
         expect(reopened.alert.repeats).toBe(0);
+        const withNote = await store.clearAlert(
+          reopened.alert.id,
+          T0 + 8 * MINUTE,
+          [],
+          'new probe',
+        );
+        expect(withNote.alert).toMatchObject({ state: 'cleared', note: 'new probe' });
       });
 
       it('stores neither the alert nor any outbox entry when queueing fails', async () => {

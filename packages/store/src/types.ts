@@ -208,6 +208,7 @@ export interface AlertRecord {
   repeats: number;
   acknowledgedAt: number | null;
   acknowledgedBy: string | null;
+  /** The latest note: the acknowledgement's, or the clearing's when it gave one. */
   note: string | null;
   clearedAt: number | null;
   evidence: unknown;
@@ -347,10 +348,12 @@ export interface Store {
     now: number,
     outbox: readonly Omit<OutboxInput, 'payload' | 'idempotencyKey'>[],
   ): Promise<AlertChange>;
+  /** Clears an alert; a note, when given, becomes the alert's note (why it was cleared). */
   clearAlert(
     id: number,
     now: number,
     outbox: readonly Omit<OutboxInput, 'payload' | 'idempotencyKey'>[],
+    note?: string,
   ): Promise<AlertChange>;
   getAlert(id: number): Promise<AlertRecord | null>;
   listAlerts(options?: {

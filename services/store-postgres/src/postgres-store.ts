@@ -1166,12 +1166,18 @@ export class PostgresStore implements ClusterStore {
     });
   }
 
-  clearAlert(id: number, now: number, outbox: readonly OutboxTarget[]): Promise<AlertChange> {
+  clearAlert(
+    id: number,
+    now: number,
+    outbox: readonly OutboxTarget[],
+    note?: string,
+  ): Promise<AlertChange> {
     return this.tx(async (client): Promise<AlertChange> => {
       await this.changeableAlert(client, id);
       await client.query(
-        `UPDATE alerts SET state = 'cleared', cleared_at = $1, updated_at = $2 WHERE id = $3`,
-        [now, now, id],
+        `UPDATE alerts SET state = 'cleared', cleared_at = $1, updated_at = $2,
+           note = COALESCE($3, note) WHERE id = $4`,
+        [now, now, note ?? null, id],
       );
       return this.announce(
         client,

@@ -957,13 +957,19 @@ export class SqliteStore implements Store {
     );
   }
 
-  clearAlert(id: number, now: number, outbox: readonly OutboxTarget[]): Promise<AlertChange> {
+  clearAlert(
+    id: number,
+    now: number,
+    outbox: readonly OutboxTarget[],
+    note?: string,
+  ): Promise<AlertChange> {
     return this.call(() =>
       this.write((): AlertChange => {
         this.changeableAlert(id);
         this.stmt(
-          `UPDATE alerts SET state = 'cleared', cleared_at = ?, updated_at = ? WHERE id = ?`,
-        ).run(now, now, id);
+          `UPDATE alerts SET state = 'cleared', cleared_at = ?, updated_at = ?,
+             note = COALESCE(?, note) WHERE id = ?`,
+        ).run(now, now, note ?? null, id);
         return this.announce({ alert: this.alertNow(id), change: 'cleared' }, outbox);
       }),
     );

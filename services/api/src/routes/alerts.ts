@@ -113,7 +113,7 @@ export function alertRoutes(app: ApiApp, ctx: ApiContext): void {
       schema: {
         summary: 'Clear an alert: the condition is dealt with',
         description:
-          'A later occurrence of the same condition opens a new alert. The body is optional: a note saying why (written to the service log) or nothing at all.',
+          'A later occurrence of the same condition opens a new alert. The body is optional: a note saying why, kept as the note of the alert, or nothing at all.',
         tags: ['alerts'],
         params: AlertIdParams,
         body: ClearBody,
@@ -125,16 +125,12 @@ export function alertRoutes(app: ApiApp, ctx: ApiContext): void {
     },
     async (request) => {
       const now = clock();
-      const change = await store.clearAlert(request.params.id, now, outboxTargets(config, now));
-      const { note } = request.body;
-      // The store keeps one note per alert, the acknowledgement's; until it keeps a clearing note
-      // too, the service log is where the reason for clearing is found again.
-      if (note !== undefined) {
-        request.log.info(
-          { alertId: change.alert.id, by: actorOf(request.caller), note },
-          'alert cleared with a note',
-        );
-      }
+      const change = await store.clearAlert(
+        request.params.id,
+        now,
+        outboxTargets(config, now),
+        request.body.note,
+      );
       return announce(change);
     },
   );
