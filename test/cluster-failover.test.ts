@@ -261,8 +261,16 @@ describe('three instances on one PostgreSQL database', () => {
       'every credible-shift opening on node-a’s event stream',
       60_000,
     ).catch(async (error: unknown) => {
-      const alerts = (await seed.listAlerts()).map((x) => `${x.kind} ${x.tag} ${x.state}`);
-      const seen = (stream?.events ?? []).map((e) => `${e.event} ${e.data.slice(0, 120)}`);
+      const alerts = (await seed.listAlerts({ limit: 10_000 }))
+        .filter((x) => x.kind === 'credible-shift')
+        .map((x) => `${x.tag} ${x.state}`);
+      for (const tag of SHIFT_TAGS) {
+        const looks = await seed.listEvidenceSnapshots(mark.id, tag, { limit: 1000 });
+        alerts.push(`${tag}: ${looks.map((l) => `${String(l.nAfter)} ${l.verdict}`).join(', ')}`);
+      }
+      const seen = (stream?.events ?? [])
+        .filter((e) => e.event !== 'alert' || e.data.includes('credible-shift'))
+        .map((e) => `${e.event} ${e.data.slice(0, 160)}`);
       throw new Error(`${String(error)}\nalerts: ${alerts.join('; ')}\nstream: ${seen.join('\n')}`);
     });
     const credible = (await seed.listAlerts()).filter((a) => a.kind === 'credible-shift');

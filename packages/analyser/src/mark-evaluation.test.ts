@@ -237,6 +237,31 @@ describe('evaluateMark', () => {
     expect(evaluateMarkCatchUp(quiet, history, capped)).toHaveLength(1);
   });
 
+  it('judges values that arrive together as one look each, so batching cannot hold an alert back', () => {
+    const m = mark();
+    const settings = settingsFor(m);
+    const state = createMarkTagState(m, 'yield', settings);
+    const after = ar1Series(seededRandom(49), 12, 102, 1, 0);
+    markAddSample(state, settings, 1000, after[0] ?? 0);
+    expect(evaluateMarkCatchUp(state, history, settings)).toHaveLength(1);
+    // The other eleven arrive in one batch (a back-log after a restart or a takeover): the last
+    // alertAfter of them are judged in turn, as they would have been one by one.
+    after.slice(1).forEach((x, i) => markAddSample(state, settings, 1001 + i, x));
+    const burst = evaluateMarkCatchUp(state, history, settings);
+    expect(burst.map((e) => e.nAfter)).toEqual([10, 11, 12]);
+    expect(burst.map((e) => e.number)).toEqual([2, 3, 4]);
+    expect(burst.at(-1)?.openAlert).toBe(true);
+
+    // A state saved before the window size at the last look was kept takes one look, as before.
+    const older = createMarkTagState(m, 'yield', settings);
+    markAddSample(older, settings, 1000, 102);
+    evaluateMarkCatchUp(older, history, settings);
+    delete older.evaluatedSize;
+    markAddSample(older, settings, 1001, 102);
+    markAddSample(older, settings, 1002, 102);
+    expect(evaluateMarkCatchUp(older, history, settings)).toHaveLength(1);
+  });
+
   it('survives a JSON round trip', () => {
     const m = mark();
     const settings = settingsFor(m);

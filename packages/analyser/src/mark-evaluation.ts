@@ -74,6 +74,11 @@ export interface MarkTagState {
   /** Values added since the last evaluation. */
   pending: boolean;
   evaluations: number;
+  /**
+   * Size of the after-window at the last evaluation, so values that arrive together are still
+   * judged one look each. Absent in states saved before it was kept: taken as one look behind.
+   */
+  evaluatedSize?: number;
   /** Consecutive evaluations that were credible in the mark's direction and large enough. */
   consecutive: number;
   alertRaised: boolean;
@@ -346,6 +351,7 @@ export function evaluateMark(
 
   state.pending = false;
   state.evaluations += 1;
+  state.evaluatedSize = state.after.length;
   state.consecutive = counts ? state.consecutive + 1 : 0;
   state.lastVerdict = verdict;
   state.lastRisk = risk;
@@ -387,11 +393,12 @@ export function evaluateMark(
 }
 
 /**
- * The first evaluation of a (mark, tag) whose after-window already holds several values, as when a
- * mark is set in the past: the last `alertAfter` window sizes are judged in turn, as if the values
- * had been followed live, so the alert rule can apply at once instead of needing more samples (a
- * full after-window would otherwise settle at the cap on its only evaluation). Later evaluations go
- * through evaluateMark, one per batch of new values.
+ * Judges the values added since the last evaluation, as if they had been followed live one at a
+ * time: the last `alertAfter` window sizes among them are judged in turn (earlier ones could not
+ * change whether an alert opens, which takes `alertAfter` credible looks in a row). So a mark set in
+ * the past can alert at once instead of needing more samples, and values that arrive together (a
+ * burst, a back-log after a restart or a shard moving to another instance) count as the looks they
+ * are, not as one: the outcome does not depend on how the samples were batched.
  */
 export function evaluateMarkCatchUp(
   state: MarkTagState,
@@ -399,8 +406,10 @@ export function evaluateMarkCatchUp(
   settings: MarkSettings,
 ): MarkEvaluation[] {
   const n = state.after.length;
-  if (state.evaluations > 0 || n <= 1) return [evaluateMark(state, history, settings)];
-  const replay = Math.min(settings.alertAfter, n);
+  const seen = state.evaluations === 0 ? 0 : Math.min(n, state.evaluatedSize ?? Math.max(0, n - 1));
+  const added = n - seen;
+  if (added <= 1) return [evaluateMark(state, history, settings)];
+  const replay = Math.min(settings.alertAfter, added);
   const values = state.after;
   const times = state.afterTimes;
   const start = n - replay + 1;
