@@ -244,6 +244,21 @@ describe('PostgreSQL store specifics', () => {
     expect(await a.heartbeat(T0 + 4000, T0 + 9000)).toEqual(['a', 'b']);
   });
 
+  it('refuses a second process under a live instance name, and lets it in once that one is silent', async () => {
+    const schema = freshSchema();
+    const first = await open({ schema, instance: 'press-line' });
+    const second = await open({ schema, instance: 'press-line' });
+    expect(await first.heartbeat(T0, T0 + 1000)).toEqual(['press-line']);
+    await expect(second.heartbeat(T0 + 500, T0 + 1500)).rejects.toMatchObject({
+      code: 'INSTANCE_NAME_TAKEN',
+    });
+    // The first one's beat ran out at T0 + 1000 (a crash): the name is free for the newcomer.
+    expect(await second.heartbeat(T0 + 1000, T0 + 2000)).toEqual(['press-line']);
+    await expect(first.heartbeat(T0 + 1100, T0 + 2100)).rejects.toMatchObject({
+      code: 'INSTANCE_NAME_TAKEN',
+    });
+  });
+
   it('carries committed changes to listening instances, and nothing malformed or rolled back', async () => {
     const schema = freshSchema();
     const a = await open({ schema, instance: 'a' });

@@ -96,6 +96,10 @@ export const errorCatalogue = {
     message:
       'This instance no longer holds the lease on the shard; another instance analyses it now.',
   },
+  INSTANCE_NAME_TAKEN: {
+    status: 409,
+    message: 'Another running process uses this instance name; give each instance its own name.',
+  },
   STORE_SHARDS_MISMATCH: {
     status: 500,
     message: 'The database was set up with another number of shards than the configuration gives.',

@@ -190,7 +190,9 @@ export const migrations: readonly Migration[] = [
 
       CREATE TABLE instances (
         id text COLLATE "C" PRIMARY KEY,
-        alive_until bigint NOT NULL
+        alive_until bigint NOT NULL,
+        -- Which process speaks under the name, so a second one started under it is refused.
+        incarnation text NOT NULL DEFAULT ''
       );
     `,
   },

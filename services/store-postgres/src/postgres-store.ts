@@ -469,6 +469,8 @@ interface KnownTag {
 export class PostgresStore implements ClusterStore {
   readonly shards: number;
   readonly instance: string;
+  /** This process among any that speak under the same instance name. */
+  private readonly incarnation = randomUUID();
   readonly schema: string;
   /** The NOTIFY channel: one per schema, so stores in different schemas do not hear each other. */
   readonly channel: string;
@@ -1385,15 +1387,27 @@ export class PostgresStore implements ClusterStore {
   // ---- cluster ----
 
   async heartbeat(now: number, until: number): Promise<string[]> {
+    // The name is this process's while its last beat lasts; another process may take it over
+    // only once that has run out (a restart after a crash waits at most one lease length).
+    const beat = await this.pool.query(
+      `INSERT INTO instances (id, alive_until, incarnation) VALUES ($1, $2, $4)
+       ON CONFLICT (id) DO UPDATE SET alive_until = excluded.alive_until,
+         incarnation = excluded.incarnation
+       WHERE instances.incarnation = excluded.incarnation OR instances.alive_until <= $3`,
+      [this.instance, until, now, this.incarnation],
+    );
+    if (beat.rowCount === 0) {
+      throw new TrueshiftError(
+        'INSTANCE_NAME_TAKEN',
+        `Another running process uses the instance name "${this.instance}"; this one takes no shards until that one has been silent for a lease length.`,
+      );
+    }
     const result = await this.pool.query<{ id: string }>(
-      `WITH beat AS (
-         INSERT INTO instances (id, alive_until) VALUES ($1, $2)
-         ON CONFLICT (id) DO UPDATE SET alive_until = excluded.alive_until)
-       SELECT id FROM instances WHERE alive_until > $3::bigint AND id <> $1::text
+      `SELECT id FROM instances WHERE alive_until > $2::bigint AND id <> $1::text
        UNION
-       SELECT $1::text WHERE $2::bigint > $3::bigint
+       SELECT $1::text WHERE $3::bigint > $2::bigint
        ORDER BY id`,
-      [this.instance, until, now],
+      [this.instance, now, until],
     );
     return result.rows.map((row) => row.id);
   }
