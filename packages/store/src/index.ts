@@ -39,3 +39,36 @@ export type {
   TokenRecord,
   TokenScope,
 } from './types.js';
+export {
+  alertFromRow,
+  announcements,
+  analyserStateFromRow,
+  checkMarkTags,
+  checkSample,
+  conflictReason,
+  correctedMarkRecord,
+  cutUtf8,
+  describeTime,
+  describeValue,
+  evidenceFromRow,
+  markFromRow,
+  newMarkRecord,
+  outboxFromRow,
+  parseJson,
+  pick,
+  tagFromRow,
+  TEXT_LIMIT_BYTES,
+  toJson,
+  tokenFromRow,
+} from './sql-rows.js';
+export type {
+  AlertRow,
+  AnalyserStateRow,
+  EvidenceRow,
+  MarkColumns,
+  MarkRevisionRow,
+  OutboxRow,
+  TagRow,
+  TokenRow,
+} from './sql-rows.js';
+export { SampleColumnsBuilder } from './sample-columns.js';

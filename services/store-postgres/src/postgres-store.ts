@@ -1,18 +1,45 @@
 import { randomUUID } from 'node:crypto';
 import pg from 'pg';
 import { TrueshiftError } from '@trueshift/errors';
-import { QUALITY_GOOD, shardOf } from '@trueshift/store';
+import {
+  alertFromRow,
+  announcements,
+  analyserStateFromRow,
+  checkMarkTags,
+  checkSample,
+  conflictReason,
+  correctedMarkRecord,
+  cutUtf8,
+  describeTime,
+  evidenceFromRow,
+  markFromRow,
+  newMarkRecord,
+  outboxFromRow,
+  parseJson,
+  pick,
+  QUALITY_GOOD,
+  SampleColumnsBuilder,
+  shardOf,
+  tagFromRow,
+  toJson,
+  tokenFromRow,
+} from '@trueshift/store';
 import type {
+  AlertRow,
+  AnalyserStateRow,
+  EvidenceRow,
+  MarkColumns,
+  MarkRevisionRow,
+  OutboxRow,
+  TagRow as SharedTagRow,
+  TokenRow,
   AlertChange,
   AlertInput,
-  AlertKind,
   AlertRecord,
   AlertState,
   AnalyserStateRecord,
-  BetterDirection,
   ClusterMessage,
   ClusterStore,
-  Direction,
   EvidenceSnapshot,
   EvidenceSnapshotInput,
   FileRecord,
@@ -21,7 +48,6 @@ import type {
   MarkInput,
   MarkRecord,
   MarkRevision,
-  OutboxChannel,
   OutboxInput,
   OutboxRecord,
   OutboxState,
@@ -34,14 +60,11 @@ import type {
   StoredSample,
   TagInput,
   TagRecord,
-  TagSettings,
   TokenInput,
   TokenRecord,
-  TokenScope,
 } from '@trueshift/store';
 import { ClusterListener } from './listener.js';
 import { applyMigrations, lockKey } from './migrations.js';
-import { cutUtf8 } from './text.js';
 import { asUnavailable } from './unavailable.js';
 
 export interface PostgresStoreOptions {
@@ -66,18 +89,8 @@ const READ_PAGE = 32_768;
 const TIME_LIMIT = 2 ** 53;
 const CHANNEL = 'trueshift_cluster';
 
-interface TagRow {
-  id: number;
-  name: string;
+interface TagRow extends SharedTagRow {
   shard: number;
-  unit: string | null;
-  description: string | null;
-  better: string;
-  valid_min: number | null;
-  valid_max: number | null;
-  settings: string;
-  created_at: number;
-  updated_at: number;
 }
 
 type PageRow = [n: number, t: Buffer | null, value: Buffer | null, quality: Buffer | null];
@@ -93,92 +106,9 @@ interface QuarantineRow {
   received_at: number;
 }
 
-interface MarkRow {
-  id: string;
+/** Its tags gathered into an array by MARK_SELECT. */
+interface MarkRow extends MarkColumns {
   tags: string[];
-  at: number;
-  label: string;
-  note: string;
-  direction: string;
-  smallest_shift: number | null;
-  n_before: number | null;
-  n_after_cap: number | null;
-  risk_level: number | null;
-  settling_ms: number | null;
-  created_at: number;
-  updated_at: number;
-  withdrawn_at: number | null;
-  revision: number;
-}
-
-interface MarkRevisionRow {
-  mark_id: string;
-  revision: number;
-  changed_at: number;
-  changed_by: string;
-  action: string;
-  reason: string;
-  mark: string;
-}
-
-interface EvidenceRow {
-  id: number;
-  mark_id: string;
-  tag: string;
-  sample_time: number;
-  evaluated_at: number;
-  n_after: number;
-  risk: number | null;
-  verdict: string;
-  body: string;
-}
-
-interface AlertRow {
-  id: number;
-  tag: string;
-  mark_id: string | null;
-  kind: string;
-  dedupe_key: string;
-  title: string;
-  state: string;
-  opened_at: number;
-  updated_at: number;
-  repeats: number;
-  acknowledged_at: number | null;
-  acknowledged_by: string | null;
-  note: string | null;
-  cleared_at: number | null;
-  evidence: string;
-}
-
-interface OutboxRow {
-  id: number;
-  channel: string;
-  target: string;
-  idempotency_key: string;
-  payload: string;
-  created_at: number;
-  state: string;
-  attempts: number;
-  next_attempt_at: number;
-  last_error: string | null;
-  delivered_at: number | null;
-}
-
-interface TokenRow {
-  id: string;
-  name: string;
-  hash: string;
-  scopes: string;
-  created_at: number;
-  revoked_at: number | null;
-}
-
-interface AnalyserStateRow {
-  key: string;
-  state: string;
-  last_seq: number;
-  updated_at: number;
 }
 
 interface LeaseRow {
@@ -207,20 +137,6 @@ const TYPES: pg.CustomTypesConfig = {
     oid === INT8_OID ? int8 : builtinParser(oid, format)) as typeof pg.types.getTypeParser,
 };
 
-function parseJson(text: string): unknown {
-  return JSON.parse(text) as unknown;
-}
-
-/** JSON text for a column that must hold something: `undefined` becomes null. */
-function toJson(value: unknown): string {
-  return JSON.stringify(value ?? null);
-}
-
-/** A patch value when one was given; null is a value (it clears the field). */
-function pick<T>(given: T | undefined, current: T): T {
-  return given === undefined ? current : given;
-}
-
 /** A limit for SQL: null is LIMIT ALL. */
 function limitOf(limit: number | undefined, what: string): number | null {
   if (limit === undefined) return null;
@@ -230,148 +146,9 @@ function limitOf(limit: number | undefined, what: string): number | null {
   return limit;
 }
 
-function describeTime(t: number): string {
-  // Date covers ±8.64e15 ms; outside that a time is shown as the bare number.
-  return Math.abs(t) <= 8.64e15 ? `${t} (${new Date(t).toISOString()})` : String(t);
-}
-
-function describeValue(value: number | null, quality: number): string {
-  return `${value === null ? 'no value' : String(value)} (quality ${quality})`;
-}
-
-function checkSample(sample: SampleInput, index: number): void {
-  let problem: string | null = null;
-  if (sample.tag.length === 0) problem = 'the tag name is empty';
-  else if (!Number.isFinite(sample.t)) problem = `the time ${sample.t} is not a finite number`;
-  else if (!Number.isSafeInteger(sample.t)) {
-    // bigint column: a time is a whole number of milliseconds.
-    problem = `the time ${sample.t} is not a whole number of milliseconds within ±2^53`;
-  } else if (sample.value !== null && !Number.isFinite(sample.value)) {
-    problem = `the value ${sample.value} is not a finite number (null means no value)`;
-  } else if ((sample.quality | 0) !== sample.quality) {
-    problem = `the quality ${sample.quality} is not a 32-bit whole number`;
-  }
-  if (problem !== null) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `Sample ${index} of the batch: ${problem}.`);
-  }
-}
-
-function checkMarkTags(tags: readonly string[]): void {
-  if (tags.length === 0 || tags.some((tag) => tag.length === 0)) {
-    throw new TrueshiftError('INVALID_ARGUMENT', 'A mark needs at least one tag, each named.');
-  }
-  if (new Set(tags).size !== tags.length) {
-    throw new TrueshiftError('INVALID_ARGUMENT', 'A mark names each tag once.');
-  }
-}
-
 /** A time bound as the smallest whole millisecond that selects the same stored samples. */
 function timeBound(bound: number): number {
   return Math.min(TIME_LIMIT, Math.max(-TIME_LIMIT, Math.ceil(bound)));
-}
-
-function tagFromRow(row: TagRow): TagRecord {
-  return {
-    name: row.name,
-    unit: row.unit,
-    description: row.description,
-    better: row.better as BetterDirection,
-    validMin: row.valid_min,
-    validMax: row.valid_max,
-    settings: parseJson(row.settings) as TagSettings,
-    createdAt: row.created_at,
-    updatedAt: row.updated_at,
-  };
-}
-
-function markFromRow(row: MarkRow): MarkRecord {
-  return {
-    id: row.id,
-    tags: row.tags,
-    at: row.at,
-    label: row.label,
-    note: row.note,
-    direction: row.direction as Direction,
-    smallestShift: row.smallest_shift,
-    nBefore: row.n_before,
-    nAfterCap: row.n_after_cap,
-    riskLevel: row.risk_level,
-    settlingMs: row.settling_ms,
-    createdAt: row.created_at,
-    updatedAt: row.updated_at,
-    withdrawnAt: row.withdrawn_at,
-    revision: row.revision,
-  };
-}
-
-function evidenceFromRow(row: EvidenceRow): EvidenceSnapshot {
-  return {
-    id: row.id,
-    markId: row.mark_id,
-    tag: row.tag,
-    sampleTime: row.sample_time,
-    evaluatedAt: row.evaluated_at,
-    nAfter: row.n_after,
-    risk: row.risk,
-    verdict: row.verdict,
-    body: parseJson(row.body),
-  };
-}
-
-function alertFromRow(row: AlertRow): AlertRecord {
-  return {
-    id: row.id,
-    tag: row.tag,
-    markId: row.mark_id,
-    kind: row.kind as AlertKind,
-    dedupeKey: row.dedupe_key,
-    title: row.title,
-    state: row.state as AlertState,
-    openedAt: row.opened_at,
-    updatedAt: row.updated_at,
-    repeats: row.repeats,
-    acknowledgedAt: row.acknowledged_at,
-    acknowledgedBy: row.acknowledged_by,
-    note: row.note,
-    clearedAt: row.cleared_at,
-    evidence: parseJson(row.evidence),
-  };
-}
-
-function outboxFromRow(row: OutboxRow): OutboxRecord {
-  return {
-    id: row.id,
-    channel: row.channel as OutboxChannel,
-    target: row.target,
-    idempotencyKey: row.idempotency_key,
-    payload: parseJson(row.payload),
-    createdAt: row.created_at,
-    state: row.state as OutboxState,
-    attempts: row.attempts,
-    nextAttemptAt: row.next_attempt_at,
-    lastError: row.last_error,
-    deliveredAt: row.delivered_at,
-  };
-}
-
-function tokenFromRow(row: TokenRow): TokenRecord {
-  return {
-    id: row.id,
-    name: row.name,
-    hash: row.hash,
-    scopes: parseJson(row.scopes) as TokenScope[],
-    createdAt: row.created_at,
-    revokedAt: row.revoked_at,
-  };
-}
-
-function analyserStateFromRow(row: AnalyserStateRow): AnalyserStateRecord {
-  return {
-    key: row.key,
-    state: parseJson(row.state),
-    lastSeq: row.last_seq,
-    updatedAt: row.updated_at,
-  };
 }
 
 function leaseFromRow(row: LeaseRow): Lease {
@@ -382,58 +159,33 @@ function byShard(a: Lease, b: Lease): number {
   return a.shard - b.shard;
 }
 
-/** Growable columns for readSamples, filled a page of raw rows at a time. */
-class ColumnBuilder {
-  private t = new Float64Array(1024);
-  private value = new Float64Array(1024);
-  private quality = new Int32Array(1024);
-  length = 0;
-
-  /**
-   * Appends `n` samples packed as big-endian float8 times, float8 values (NaN: no value) and int4
-   * qualities, in time order (descending when asked).
-   */
-  appendPacked(n: number, t: Buffer, value: Buffer, quality: Buffer, descending: boolean): void {
-    if (t.length !== 8 * n || value.length !== 8 * n || quality.length !== 4 * n) {
-      throw new TrueshiftError('INTERNAL', `A page of ${n} samples came back malformed.`);
-    }
-    const needed = this.length + n;
-    if (needed > this.t.length) {
-      let capacity = this.t.length * 2;
-      while (capacity < needed) capacity *= 2;
-      this.t = grow(this.t, new Float64Array(capacity));
-      this.value = grow(this.value, new Float64Array(capacity));
-      this.quality = grow(this.quality, new Int32Array(capacity));
-    }
-    const times = new Float64Array(n);
-    for (let i = 0; i < n; i++) times[i] = t.readDoubleBE(8 * i);
-    const order = inOrder(times, descending) ? null : sortedIndices(times, descending);
-    const at = this.length;
-    for (let k = 0; k < n; k++) {
-      const i = order === null ? k : (order[k] ?? k);
-      this.t[at + k] = times[i] ?? Number.NaN;
-      this.value[at + k] = value.readDoubleBE(8 * i);
-      this.quality[at + k] = quality.readInt32BE(4 * i);
-    }
-    this.length = needed;
+/**
+ * Appends `n` samples packed as big-endian float8 times, float8 values (NaN: no value) and int4
+ * qualities, in time order (descending when asked).
+ */
+function appendPacked(
+  columns: SampleColumnsBuilder,
+  n: number,
+  t: Buffer,
+  value: Buffer,
+  quality: Buffer,
+  descending: boolean,
+): void {
+  if (t.length !== 8 * n || value.length !== 8 * n || quality.length !== 4 * n) {
+    throw new TrueshiftError('INTERNAL', `A page of ${n} samples came back malformed.`);
   }
-
-  lastTime(): number {
-    return this.t[this.length - 1] ?? Number.NaN;
-  }
-
-  finish(reverse: boolean): SampleColumns {
-    const columns = {
-      t: this.t.slice(0, this.length),
-      value: this.value.slice(0, this.length),
-      quality: this.quality.slice(0, this.length),
-    };
-    if (reverse) {
-      columns.t.reverse();
-      columns.value.reverse();
-      columns.quality.reverse();
-    }
-    return columns;
+  const times = new Float64Array(n);
+  for (let i = 0; i < n; i++) times[i] = t.readDoubleBE(8 * i);
+  const order = inOrder(times, descending) ? null : sortedIndices(times, descending);
+  const at = columns.reserve(n);
+  for (let k = 0; k < n; k++) {
+    const i = order === null ? k : (order[k] ?? k);
+    columns.set(
+      at + k,
+      times[i] ?? Number.NaN,
+      value.readDoubleBE(8 * i),
+      quality.readInt32BE(4 * i),
+    );
   }
 }
 
@@ -449,11 +201,6 @@ function inOrder(times: Float64Array, descending: boolean): boolean {
 function sortedIndices(times: Float64Array, descending: boolean): number[] {
   const sign = descending ? -1 : 1;
   return Array.from(times, (_, i) => i).sort((a, b) => sign * ((times[a] ?? 0) - (times[b] ?? 0)));
-}
-
-function grow<T extends Float64Array | Int32Array>(from: T, to: T): T {
-  to.set(from);
-  return to;
 }
 
 interface KnownTag {
@@ -588,7 +335,10 @@ export class PostgresStore implements ClusterStore {
   // ---- samples ----
 
   async writeSamples(samples: readonly SampleInput[]): Promise<SampleWriteResult> {
-    samples.forEach(checkSample);
+    samples.forEach((sample, i) => {
+      // bigint column: a time must be a whole number of milliseconds.
+      checkSample(sample, i, true);
+    });
     const result: SampleWriteResult = { inserted: 0, duplicates: 0, conflicts: 0 };
     if (samples.length === 0) return result;
     try {
@@ -678,7 +428,7 @@ export class PostgresStore implements ClusterStore {
       throw new TrueshiftError('INVALID_ARGUMENT', 'readSamples: from and to must be numbers.');
     }
     const limit = limitOf(options.limit, 'readSamples');
-    const columns = new ColumnBuilder();
+    const columns = new SampleColumnsBuilder();
     const known = await this.lookupTag(tag);
     if (known === undefined || limit === 0) return columns.finish(false);
     let lower = timeBound(from);
@@ -724,7 +474,7 @@ export class PostgresStore implements ClusterStore {
    */
   private async readPage(
     client: pg.ClientBase,
-    columns: ColumnBuilder,
+    columns: SampleColumnsBuilder,
     tagId: number,
     lower: number,
     upper: number,
@@ -751,7 +501,7 @@ export class PostgresStore implements ClusterStore {
     });
     const [n, t, value, quality] = result.rows[0] ?? [0, null, null, null];
     if (n > 0 && t !== null && value !== null && quality !== null) {
-      columns.appendPacked(n, t, value, quality, descending);
+      appendPacked(columns, n, t, value, quality, descending);
     }
     return n;
   }
@@ -853,23 +603,7 @@ export class PostgresStore implements ClusterStore {
 
   async createMark(mark: MarkInput, by: string, now: number): Promise<MarkRecord> {
     checkMarkTags(mark.tags);
-    const record: MarkRecord = {
-      id: randomUUID(),
-      tags: [...mark.tags],
-      at: mark.at,
-      label: mark.label,
-      note: mark.note ?? '',
-      direction: mark.direction,
-      smallestShift: mark.smallestShift ?? null,
-      nBefore: mark.nBefore ?? null,
-      nAfterCap: mark.nAfterCap ?? null,
-      riskLevel: mark.riskLevel ?? null,
-      settlingMs: mark.settlingMs ?? null,
-      createdAt: now,
-      updatedAt: now,
-      withdrawnAt: null,
-      revision: 1,
-    };
+    const record = newMarkRecord(mark, randomUUID(), now);
     const known = await this.tx(async (client) => {
       await client.query(
         `INSERT INTO marks (id, at, label, note, direction, smallest_shift, n_before, n_after_cap,
@@ -916,21 +650,7 @@ export class PostgresStore implements ClusterStore {
     if (patch.tags !== undefined) checkMarkTags(patch.tags);
     const [record, known] = await this.tx(async (client) => {
       const current = await this.changeableMark(client, id);
-      const next: MarkRecord = {
-        ...current,
-        tags: patch.tags === undefined ? current.tags : [...patch.tags],
-        at: patch.at ?? current.at,
-        label: patch.label ?? current.label,
-        note: patch.note ?? current.note,
-        direction: patch.direction ?? current.direction,
-        smallestShift: pick(patch.smallestShift, current.smallestShift),
-        nBefore: pick(patch.nBefore, current.nBefore),
-        nAfterCap: pick(patch.nAfterCap, current.nAfterCap),
-        riskLevel: pick(patch.riskLevel, current.riskLevel),
-        settlingMs: pick(patch.settlingMs, current.settlingMs),
-        updatedAt: now,
-        revision: current.revision + 1,
-      };
+      const next = correctedMarkRecord(current, patch, now);
       await client.query(
         `UPDATE marks SET at = $1, label = $2, note = $3, direction = $4, smallest_shift = $5,
                           n_before = $6, n_after_cap = $7, risk_level = $8, settling_ms = $9,
@@ -1016,7 +736,7 @@ export class PostgresStore implements ClusterStore {
        ORDER BY m.at, m.created_at, m.id`,
       params,
     );
-    return result.rows.map(markFromRow);
+    return result.rows.map((row) => markFromRow(row, row.tags));
   }
 
   async markHistory(id: string): Promise<MarkRevision[]> {
@@ -1629,10 +1349,7 @@ export class PostgresStore implements ClusterStore {
       conflicts.push({
         source: sample.source,
         raw: JSON.stringify(sample),
-        reason:
-          `Tag ${sample.tag} at ${describeTime(sample.t)} already has ` +
-          `${describeValue(value, quality)}; the new ${describeValue(sample.value, sample.quality)} ` +
-          'was not stored.',
+        reason: conflictReason(sample, value, quality),
         code: 'SAMPLE_CONFLICT',
         tag: sample.tag,
         receivedAt: sample.receivedAt,
@@ -1673,7 +1390,7 @@ export class PostgresStore implements ClusterStore {
       [id],
     );
     const row = result.rows[0];
-    return row === undefined ? undefined : markFromRow(row);
+    return row === undefined ? undefined : markFromRow(row, row.tags);
   }
 
   private async requireMark(client: pg.ClientBase, id: string, lock = false): Promise<MarkRecord> {
@@ -1765,21 +1482,11 @@ export class PostgresStore implements ClusterStore {
     change: AlertChange,
     targets: readonly OutboxTarget[],
   ): Promise<AlertChange> {
-    const { alert } = change;
-    await this.enqueueNow(
-      client,
-      targets.map((target) => ({
-        channel: target.channel,
-        target: target.target,
-        createdAt: target.createdAt,
-        idempotencyKey: `alert:${alert.id}:${change.change}:${alert.repeats}`,
-        payload: { change: change.change, alert },
-      })),
-    );
+    await this.enqueueNow(client, announcements(change, targets));
     await this.notify(client, {
       kind: 'alert',
       origin: this.instance,
-      alertId: alert.id,
+      alertId: change.alert.id,
       change: change.change,
     });
     return change;

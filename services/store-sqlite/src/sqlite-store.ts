@@ -1,16 +1,42 @@
 import { randomUUID } from 'node:crypto';
 import Database from 'better-sqlite3';
 import { TrueshiftError } from '@trueshift/errors';
-import { QUALITY_GOOD } from '@trueshift/store';
+import {
+  alertFromRow,
+  announcements,
+  analyserStateFromRow,
+  checkMarkTags,
+  checkSample,
+  conflictReason,
+  correctedMarkRecord,
+  cutUtf8,
+  describeTime,
+  evidenceFromRow,
+  markFromRow,
+  newMarkRecord,
+  outboxFromRow,
+  parseJson,
+  pick,
+  QUALITY_GOOD,
+  SampleColumnsBuilder,
+  tagFromRow,
+  toJson,
+  tokenFromRow,
+} from '@trueshift/store';
 import type {
+  AlertRow,
+  AnalyserStateRow,
+  EvidenceRow,
+  MarkColumns,
+  MarkRevisionRow,
+  OutboxRow,
+  TagRow,
+  TokenRow,
   AlertChange,
   AlertInput,
-  AlertKind,
   AlertRecord,
   AlertState,
   AnalyserStateRecord,
-  BetterDirection,
-  Direction,
   EvidenceSnapshot,
   EvidenceSnapshotInput,
   FileRecord,
@@ -18,7 +44,6 @@ import type {
   MarkInput,
   MarkRecord,
   MarkRevision,
-  OutboxChannel,
   OutboxInput,
   OutboxRecord,
   OutboxState,
@@ -32,13 +57,10 @@ import type {
   StoredSample,
   TagInput,
   TagRecord,
-  TagSettings,
   TokenInput,
   TokenRecord,
-  TokenScope,
 } from '@trueshift/store';
 import { applyMigrations } from './migrations.js';
-import { cutUtf8 } from './text.js';
 
 export interface SqliteStoreOptions {
   /** A file path, or ':memory:' for a store that lives as long as the process. */
@@ -53,19 +75,6 @@ type OutboxTarget = Omit<OutboxInput, 'payload' | 'idempotencyKey'>;
 /** Rows read per page by readSamples: small pages keep garbage young and cheap to collect. */
 const READ_PAGE = 8192;
 
-interface TagRow {
-  id: number;
-  name: string;
-  unit: string | null;
-  description: string | null;
-  better: string;
-  valid_min: number | null;
-  valid_max: number | null;
-  settings: string;
-  created_at: number;
-  updated_at: number;
-}
-
 type SampleRow = [t: number, value: number | null, quality: number];
 type StoredSampleRow = [seq: number, tag: string, t: number, value: number | null, quality: number];
 
@@ -79,92 +88,9 @@ interface QuarantineRow {
   received_at: number;
 }
 
-interface MarkRow {
-  id: string;
+/** Its tags gathered into one JSON array by MARK_SELECT. */
+interface MarkRow extends MarkColumns {
   tags: string;
-  at: number;
-  label: string;
-  note: string;
-  direction: string;
-  smallest_shift: number | null;
-  n_before: number | null;
-  n_after_cap: number | null;
-  risk_level: number | null;
-  settling_ms: number | null;
-  created_at: number;
-  updated_at: number;
-  withdrawn_at: number | null;
-  revision: number;
-}
-
-interface MarkRevisionRow {
-  mark_id: string;
-  revision: number;
-  changed_at: number;
-  changed_by: string;
-  action: string;
-  reason: string;
-  mark: string;
-}
-
-interface EvidenceRow {
-  id: number;
-  mark_id: string;
-  tag: string;
-  sample_time: number;
-  evaluated_at: number;
-  n_after: number;
-  risk: number | null;
-  verdict: string;
-  body: string;
-}
-
-interface AlertRow {
-  id: number;
-  tag: string;
-  mark_id: string | null;
-  kind: string;
-  dedupe_key: string;
-  title: string;
-  state: string;
-  opened_at: number;
-  updated_at: number;
-  repeats: number;
-  acknowledged_at: number | null;
-  acknowledged_by: string | null;
-  note: string | null;
-  cleared_at: number | null;
-  evidence: string;
-}
-
-interface OutboxRow {
-  id: number;
-  channel: string;
-  target: string;
-  idempotency_key: string;
-  payload: string;
-  created_at: number;
-  state: string;
-  attempts: number;
-  next_attempt_at: number;
-  last_error: string | null;
-  delivered_at: number | null;
-}
-
-interface TokenRow {
-  id: string;
-  name: string;
-  hash: string;
-  scopes: string;
-  created_at: number;
-  revoked_at: number | null;
-}
-
-interface AnalyserStateRow {
-  key: string;
-  state: string;
-  last_seq: number;
-  updated_at: number;
 }
 
 const MARK_SELECT = `
@@ -174,20 +100,6 @@ const MARK_SELECT = `
       WHERE mt.mark_id = m.id) AS tags
   FROM marks m`;
 
-function parseJson(text: string): unknown {
-  return JSON.parse(text) as unknown;
-}
-
-/** JSON text for a column that must hold something: `undefined` becomes null. */
-function toJson(value: unknown): string {
-  return JSON.stringify(value ?? null);
-}
-
-/** A patch value when one was given; null is a value (it clears the field). */
-function pick<T>(given: T | undefined, current: T): T {
-  return given === undefined ? current : given;
-}
-
 function limitOf(limit: number | undefined, what: string): number {
   if (limit === undefined) return -1;
   if (!Number.isSafeInteger(limit) || limit < 0) {
@@ -196,190 +108,12 @@ function limitOf(limit: number | undefined, what: string): number {
   return limit;
 }
 
-function describeTime(t: number): string {
-  // Date covers ±8.64e15 ms; outside that a time is shown as the bare number.
-  return Math.abs(t) <= 8.64e15 ? `${t} (${new Date(t).toISOString()})` : String(t);
-}
-
-function describeValue(value: number | null, quality: number): string {
-  return `${value === null ? 'no value' : String(value)} (quality ${quality})`;
-}
-
-function checkSample(sample: SampleInput, index: number): void {
-  let problem: string | null = null;
-  if (sample.tag.length === 0) problem = 'the tag name is empty';
-  else if (!Number.isFinite(sample.t)) problem = `the time ${sample.t} is not a finite number`;
-  else if (sample.value !== null && !Number.isFinite(sample.value)) {
-    problem = `the value ${sample.value} is not a finite number (null means no value)`;
-  } else if ((sample.quality | 0) !== sample.quality) {
-    problem = `the quality ${sample.quality} is not a 32-bit whole number`;
-  }
-  if (problem !== null) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `Sample ${index} of the batch: ${problem}.`);
-  }
-}
-
-function checkMarkTags(tags: readonly string[]): void {
-  if (tags.length === 0 || tags.some((tag) => tag.length === 0)) {
-    throw new TrueshiftError('INVALID_ARGUMENT', 'A mark needs at least one tag, each named.');
-  }
-  if (new Set(tags).size !== tags.length) {
-    throw new TrueshiftError('INVALID_ARGUMENT', 'A mark names each tag once.');
-  }
-}
-
-function tagFromRow(row: TagRow): TagRecord {
-  return {
-    name: row.name,
-    unit: row.unit,
-    description: row.description,
-    better: row.better as BetterDirection,
-    validMin: row.valid_min,
-    validMax: row.valid_max,
-    settings: parseJson(row.settings) as TagSettings,
-    createdAt: row.created_at,
-    updatedAt: row.updated_at,
-  };
-}
-
-function markFromRow(row: MarkRow): MarkRecord {
-  return {
-    id: row.id,
-    tags: parseJson(row.tags) as string[],
-    at: row.at,
-    label: row.label,
-    note: row.note,
-    direction: row.direction as Direction,
-    smallestShift: row.smallest_shift,
-    nBefore: row.n_before,
-    nAfterCap: row.n_after_cap,
-    riskLevel: row.risk_level,
-    settlingMs: row.settling_ms,
-    createdAt: row.created_at,
-    updatedAt: row.updated_at,
-    withdrawnAt: row.withdrawn_at,
-    revision: row.revision,
-  };
-}
-
-function evidenceFromRow(row: EvidenceRow): EvidenceSnapshot {
-  return {
-    id: row.id,
-    markId: row.mark_id,
-    tag: row.tag,
-    sampleTime: row.sample_time,
-    evaluatedAt: row.evaluated_at,
-    nAfter: row.n_after,
-    risk: row.risk,
-    verdict: row.verdict,
-    body: parseJson(row.body),
-  };
-}
-
-function alertFromRow(row: AlertRow): AlertRecord {
-  return {
-    id: row.id,
-    tag: row.tag,
-    markId: row.mark_id,
-    kind: row.kind as AlertKind,
-    dedupeKey: row.dedupe_key,
-    title: row.title,
-    state: row.state as AlertState,
-    openedAt: row.opened_at,
-    updatedAt: row.updated_at,
-    repeats: row.repeats,
-    acknowledgedAt: row.acknowledged_at,
-    acknowledgedBy: row.acknowledged_by,
-    note: row.note,
-    clearedAt: row.cleared_at,
-    evidence: parseJson(row.evidence),
-  };
-}
-
-function outboxFromRow(row: OutboxRow): OutboxRecord {
-  return {
-    id: row.id,
-    channel: row.channel as OutboxChannel,
-    target: row.target,
-    idempotencyKey: row.idempotency_key,
-    payload: parseJson(row.payload),
-    createdAt: row.created_at,
-    state: row.state as OutboxState,
-    attempts: row.attempts,
-    nextAttemptAt: row.next_attempt_at,
-    lastError: row.last_error,
-    deliveredAt: row.delivered_at,
-  };
-}
-
-function tokenFromRow(row: TokenRow): TokenRecord {
-  return {
-    id: row.id,
-    name: row.name,
-    hash: row.hash,
-    scopes: parseJson(row.scopes) as TokenScope[],
-    createdAt: row.created_at,
-    revokedAt: row.revoked_at,
-  };
-}
-
-function analyserStateFromRow(row: AnalyserStateRow): AnalyserStateRecord {
-  return {
-    key: row.key,
-    state: parseJson(row.state),
-    lastSeq: row.last_seq,
-    updatedAt: row.updated_at,
-  };
-}
-
-/** Growable columns for readSamples, filled a page of raw rows at a time. */
-class ColumnBuilder {
-  private t = new Float64Array(1024);
-  private value = new Float64Array(1024);
-  private quality = new Int32Array(1024);
-  length = 0;
-
-  append(rows: readonly SampleRow[]): void {
-    const needed = this.length + rows.length;
-    if (needed > this.t.length) {
-      let capacity = this.t.length * 2;
-      while (capacity < needed) capacity *= 2;
-      this.t = grow(this.t, new Float64Array(capacity));
-      this.value = grow(this.value, new Float64Array(capacity));
-      this.quality = grow(this.quality, new Int32Array(capacity));
-    }
-    let i = this.length;
-    for (const row of rows) {
-      this.t[i] = row[0];
-      this.value[i] = row[1] ?? Number.NaN;
-      this.quality[i] = row[2];
-      i++;
-    }
-    this.length = i;
-  }
-
-  lastTime(): number {
-    return this.t[this.length - 1] ?? Number.NaN;
-  }
-
-  finish(reverse: boolean): SampleColumns {
-    const columns = {
-      t: this.t.slice(0, this.length),
-      value: this.value.slice(0, this.length),
-      quality: this.quality.slice(0, this.length),
-    };
-    if (reverse) {
-      columns.t.reverse();
-      columns.value.reverse();
-      columns.quality.reverse();
-    }
-    return columns;
-  }
-}
-
-function grow<T extends Float64Array | Int32Array>(from: T, to: T): T {
-  to.set(from);
-  return to;
+/** Appends a page of rows to the columns being gathered. */
+function appendRows(columns: SampleColumnsBuilder, rows: readonly SampleRow[]): void {
+  const at = columns.reserve(rows.length);
+  rows.forEach((row, k) => {
+    columns.set(at + k, row[0], row[1] ?? Number.NaN, row[2]);
+  });
 }
 
 /**
@@ -513,7 +247,9 @@ export class SqliteStore implements Store {
 
   writeSamples(samples: readonly SampleInput[]): Promise<SampleWriteResult> {
     return this.call(() => {
-      samples.forEach(checkSample);
+      samples.forEach((sample, i) => {
+        checkSample(sample, i);
+      });
       return this.write(() => {
         const insert = this.stmt(
           // Only a clash on (tag, time) is expected; a clash on seq must fail loudly.
@@ -546,10 +282,7 @@ export class SqliteStore implements Store {
           this.quarantineOne({
             source: sample.source,
             raw: JSON.stringify(sample),
-            reason:
-              `Tag ${sample.tag} at ${describeTime(sample.t)} already has ` +
-              `${describeValue(value, quality)}; the new ${describeValue(sample.value, sample.quality)} ` +
-              'was not stored.',
+            reason: conflictReason(sample, value, quality),
             code: 'SAMPLE_CONFLICT',
             tag: sample.tag,
             receivedAt: sample.receivedAt,
@@ -568,7 +301,7 @@ export class SqliteStore implements Store {
         throw new TrueshiftError('INVALID_ARGUMENT', 'readSamples: from and to must be numbers.');
       }
       const limit = limitOf(options.limit, 'readSamples');
-      const columns = new ColumnBuilder();
+      const columns = new SampleColumnsBuilder();
       const tagId = this.lookupTagId(tag);
       if (tagId === undefined) return columns.finish(false);
       const good =
@@ -586,7 +319,7 @@ export class SqliteStore implements Store {
         );
         let rows = first.all(tagId, from, to);
         for (;;) {
-          columns.append(rows);
+          appendRows(columns, rows);
           if (rows.length < READ_PAGE) break;
           rows = next.all(tagId, columns.lastTime(), to);
         }
@@ -602,7 +335,7 @@ export class SqliteStore implements Store {
       while (remaining > 0) {
         const want = Math.min(READ_PAGE, remaining);
         const rows = page.all(tagId, from, upper, want);
-        columns.append(rows);
+        appendRows(columns, rows);
         remaining -= rows.length;
         if (rows.length < want) break;
         upper = columns.lastTime();
@@ -686,23 +419,7 @@ export class SqliteStore implements Store {
   createMark(mark: MarkInput, by: string, now: number): Promise<MarkRecord> {
     return this.call(() => {
       checkMarkTags(mark.tags);
-      const record: MarkRecord = {
-        id: randomUUID(),
-        tags: [...mark.tags],
-        at: mark.at,
-        label: mark.label,
-        note: mark.note ?? '',
-        direction: mark.direction,
-        smallestShift: mark.smallestShift ?? null,
-        nBefore: mark.nBefore ?? null,
-        nAfterCap: mark.nAfterCap ?? null,
-        riskLevel: mark.riskLevel ?? null,
-        settlingMs: mark.settlingMs ?? null,
-        createdAt: now,
-        updatedAt: now,
-        withdrawnAt: null,
-        revision: 1,
-      };
+      const record = newMarkRecord(mark, randomUUID(), now);
       return this.write(() => {
         this.stmt(
           `INSERT INTO marks (id, at, label, note, direction, smallest_shift, n_before, n_after_cap,
@@ -742,21 +459,7 @@ export class SqliteStore implements Store {
       if (patch.tags !== undefined) checkMarkTags(patch.tags);
       return this.write(() => {
         const current = this.changeableMark(id);
-        const record: MarkRecord = {
-          ...current,
-          tags: patch.tags === undefined ? current.tags : [...patch.tags],
-          at: patch.at ?? current.at,
-          label: patch.label ?? current.label,
-          note: patch.note ?? current.note,
-          direction: patch.direction ?? current.direction,
-          smallestShift: pick(patch.smallestShift, current.smallestShift),
-          nBefore: pick(patch.nBefore, current.nBefore),
-          nAfterCap: pick(patch.nAfterCap, current.nAfterCap),
-          riskLevel: pick(patch.riskLevel, current.riskLevel),
-          settlingMs: pick(patch.settlingMs, current.settlingMs),
-          updatedAt: now,
-          revision: current.revision + 1,
-        };
+        const record = correctedMarkRecord(current, patch, now);
         this.stmt(
           `UPDATE marks SET at = ?, label = ?, note = ?, direction = ?, smallest_shift = ?,
                             n_before = ?, n_after_cap = ?, risk_level = ?, settling_ms = ?,
@@ -824,7 +527,7 @@ export class SqliteStore implements Store {
                    ORDER BY m.at, m.created_at, m.id`;
       return this.stmt<MarkRow>(sql)
         .all(...params)
-        .map(markFromRow);
+        .map((row) => markFromRow(row, parseJson(row.tags) as string[]));
     });
   }
 
@@ -1263,7 +966,7 @@ export class SqliteStore implements Store {
 
   private markNow(id: string): MarkRecord | undefined {
     const row = this.stmt<MarkRow>(`${MARK_SELECT} WHERE m.id = ?`).get(id);
-    return row === undefined ? undefined : markFromRow(row);
+    return row === undefined ? undefined : markFromRow(row, parseJson(row.tags) as string[]);
   }
 
   private requireMark(id: string): MarkRecord {
@@ -1322,16 +1025,7 @@ export class SqliteStore implements Store {
 
   /** Queues the change for every target in the caller's transaction: saved together or not at all. */
   private announce(change: AlertChange, targets: readonly OutboxTarget[]): AlertChange {
-    const { alert } = change;
-    this.enqueueNow(
-      targets.map((target) => ({
-        channel: target.channel,
-        target: target.target,
-        createdAt: target.createdAt,
-        idempotencyKey: `alert:${alert.id}:${change.change}:${alert.repeats}`,
-        payload: { change: change.change, alert },
-      })),
-    );
+    this.enqueueNow(announcements(change, targets));
     return change;
   }
 
