@@ -15,11 +15,14 @@ import type {
   EvidenceSnapshot,
   MarkInput,
   MarkRecord,
+  MarkRevision,
   OutboxChannel,
   OutboxInput,
   OutboxRecord,
   OutboxState,
+  QuarantineEntry,
   SampleInput,
+  TagInput,
   TagRecord,
   TagSettings,
   TokenRecord,
@@ -377,4 +380,100 @@ export function announcements(
     idempotencyKey: `alert:${alert.id}:${change.change}:${alert.repeats}`,
     payload: { change: change.change, alert },
   }));
+}
+
+/** A row limit as given, checked: a whole number >= 0, or undefined for no limit. */
+export function checkLimit(limit: number | undefined, what: string): number | undefined {
+  if (limit !== undefined && (!Number.isSafeInteger(limit) || limit < 0)) {
+    throw new TrueshiftError('INVALID_ARGUMENT', `${what}: limit must be a whole number >= 0.`);
+  }
+  return limit;
+}
+
+export function checkTagNames(names: readonly string[]): void {
+  if (names.some((name) => name.length === 0)) {
+    throw new TrueshiftError('INVALID_ARGUMENT', 'A tag needs a name.');
+  }
+}
+
+/** A tag after an upsert: the fields given, the stored ones for the rest, its first createdAt. */
+export function upsertedTagRecord(
+  tag: TagInput,
+  existing: TagRecord | undefined,
+  now: number,
+): TagRecord {
+  return {
+    name: tag.name,
+    unit: pick(tag.unit, existing?.unit ?? null),
+    description: pick(tag.description, existing?.description ?? null),
+    better: tag.better ?? existing?.better ?? 'either',
+    validMin: pick(tag.validMin, existing?.validMin ?? null),
+    validMax: pick(tag.validMax, existing?.validMax ?? null),
+    settings: tag.settings ?? existing?.settings ?? {},
+    createdAt: existing?.createdAt ?? now,
+    updatedAt: now,
+  };
+}
+
+/** The mark looked up by `id`, which must exist. */
+export function existingMark(mark: MarkRecord | undefined, id: string): MarkRecord {
+  if (mark === undefined) throw new TrueshiftError('MARK_NOT_FOUND', `Mark ${id}.`);
+  return mark;
+}
+
+/** The mark a correction or withdrawal may change: it exists and is not withdrawn. */
+export function changeableMark(found: MarkRecord | undefined, id: string): MarkRecord {
+  const mark = existingMark(found, id);
+  if (mark.withdrawnAt !== null) {
+    throw new TrueshiftError(
+      'MARK_WITHDRAWN',
+      `Mark ${id} was withdrawn at ${describeTime(mark.withdrawnAt)}.`,
+    );
+  }
+  return mark;
+}
+
+/** The alert an acknowledgement or clearing may change: it is not cleared. */
+export function changeableAlert(alert: AlertRecord): AlertRecord {
+  if (alert.state === 'cleared') {
+    throw new TrueshiftError(
+      'ALERT_CLEARED',
+      `Alert ${alert.id} was cleared at ${describeTime(alert.clearedAt ?? alert.updatedAt)}.`,
+    );
+  }
+  return alert;
+}
+
+export function markRevisionFromRow(row: MarkRevisionRow): MarkRevision {
+  return {
+    markId: row.mark_id,
+    revision: row.revision,
+    changedAt: row.changed_at,
+    changedBy: row.changed_by,
+    action: row.action as MarkRevision['action'],
+    reason: row.reason,
+    mark: parseJson(row.mark) as MarkRecord,
+  };
+}
+
+/** A quarantine entry's columns but its raw input, which each backend keeps in its own type. */
+export interface QuarantineColumns {
+  id: number;
+  source: string;
+  reason: string;
+  code: string;
+  tag: string | null;
+  received_at: number;
+}
+
+export function quarantineFromRow(row: QuarantineColumns, raw: string): QuarantineEntry {
+  return {
+    id: row.id,
+    source: row.source,
+    raw,
+    reason: row.reason,
+    code: row.code as QuarantineEntry['code'],
+    tag: row.tag,
+    receivedAt: row.received_at,
+  };
 }

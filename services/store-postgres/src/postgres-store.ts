@@ -4,19 +4,24 @@ import { TrueshiftError } from '@trueshift/errors';
 import {
   alertFromRow,
   announcements,
+  changeableAlert,
+  changeableMark,
+  checkLimit,
+  checkTagNames,
+  existingMark,
+  upsertedTagRecord,
   analyserStateFromRow,
   checkMarkTags,
   checkSample,
   conflictReason,
   correctedMarkRecord,
   cutUtf8,
-  describeTime,
   evidenceFromRow,
   markFromRow,
+  markRevisionFromRow,
   newMarkRecord,
   outboxFromRow,
-  parseJson,
-  pick,
+  quarantineFromRow,
   QUALITY_GOOD,
   SampleColumnsBuilder,
   shardOf,
@@ -26,6 +31,7 @@ import {
 } from '@trueshift/store';
 import type {
   AlertRow,
+  QuarantineColumns,
   AnalyserStateRow,
   EvidenceRow,
   MarkColumns,
@@ -96,14 +102,8 @@ interface TagRow extends SharedTagRow {
 type PageRow = [n: number, t: Buffer | null, value: Buffer | null, quality: Buffer | null];
 type StoredSampleRow = [seq: number, tag: string, t: number, value: number | null, quality: number];
 
-interface QuarantineRow {
-  id: number;
-  source: string;
+interface QuarantineRow extends QuarantineColumns {
   raw: Buffer;
-  reason: string;
-  code: string;
-  tag: string | null;
-  received_at: number;
 }
 
 /** Its tags gathered into an array by MARK_SELECT. */
@@ -139,11 +139,7 @@ const TYPES: pg.CustomTypesConfig = {
 
 /** A limit for SQL: null is LIMIT ALL. */
 function limitOf(limit: number | undefined, what: string): number | null {
-  if (limit === undefined) return null;
-  if (!Number.isSafeInteger(limit) || limit < 0) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `${what}: limit must be a whole number >= 0.`);
-  }
-  return limit;
+  return checkLimit(limit, what) ?? null;
 }
 
 /** A time bound as the smallest whole millisecond that selects the same stored samples. */
@@ -258,9 +254,7 @@ export class PostgresStore implements ClusterStore {
   // ---- tags ----
 
   async upsertTag(tag: TagInput, now: number): Promise<TagRecord> {
-    if (tag.name.length === 0) {
-      throw new TrueshiftError('INVALID_ARGUMENT', 'A tag needs a name.');
-    }
+    checkTagNames([tag.name]);
     return this.tx(async (client) => {
       // NO KEY: marks referencing the tag (a key share lock) need not wait for a settings change.
       const found = await client.query<TagRow>(
@@ -269,17 +263,7 @@ export class PostgresStore implements ClusterStore {
       );
       const existingRow = found.rows[0];
       const existing = existingRow === undefined ? undefined : tagFromRow(existingRow);
-      const record: TagRecord = {
-        name: tag.name,
-        unit: pick(tag.unit, existing?.unit ?? null),
-        description: pick(tag.description, existing?.description ?? null),
-        better: tag.better ?? existing?.better ?? 'either',
-        validMin: pick(tag.validMin, existing?.validMin ?? null),
-        validMax: pick(tag.validMax, existing?.validMax ?? null),
-        settings: tag.settings ?? existing?.settings ?? {},
-        createdAt: existing?.createdAt ?? now,
-        updatedAt: now,
-      };
+      const record = upsertedTagRecord(tag, existing, now);
       // RETURNING: should another instance have created the tag meanwhile, its createdAt stands.
       const stored = await client.query<TagRow>(
         `INSERT INTO tags (name, shard, unit, description, better, valid_min, valid_max, settings,
@@ -309,9 +293,7 @@ export class PostgresStore implements ClusterStore {
   }
 
   async ensureTags(names: readonly string[], now: number): Promise<void> {
-    if (names.some((name) => name.length === 0)) {
-      throw new TrueshiftError('INVALID_ARGUMENT', 'A tag needs a name.');
-    }
+    checkTagNames(names);
     const known = await this.tx((client) =>
       this.tagIds(
         client,
@@ -583,15 +565,7 @@ export class PostgresStore implements ClusterStore {
        ORDER BY id DESC LIMIT $${params.length}`,
       params,
     );
-    return result.rows.map((row) => ({
-      id: row.id,
-      source: row.source,
-      raw: row.raw.toString('utf8'),
-      reason: row.reason,
-      code: row.code as QuarantineEntry['code'],
-      tag: row.tag,
-      receivedAt: row.received_at,
-    }));
+    return result.rows.map((row) => quarantineFromRow(row, row.raw.toString('utf8')));
   }
 
   async countQuarantine(): Promise<number> {
@@ -744,15 +718,7 @@ export class PostgresStore implements ClusterStore {
       'SELECT * FROM mark_revisions WHERE mark_id = $1 ORDER BY revision',
       [id],
     );
-    return result.rows.map((row) => ({
-      markId: row.mark_id,
-      revision: row.revision,
-      changedAt: row.changed_at,
-      changedBy: row.changed_by,
-      action: row.action as MarkRevision['action'],
-      reason: row.reason,
-      mark: parseJson(row.mark) as MarkRecord,
-    }));
+    return result.rows.map(markRevisionFromRow);
   }
 
   // ---- evidence ----
@@ -1393,22 +1359,13 @@ export class PostgresStore implements ClusterStore {
     return row === undefined ? undefined : markFromRow(row, row.tags);
   }
 
-  private async requireMark(client: pg.ClientBase, id: string, lock = false): Promise<MarkRecord> {
-    const mark = await this.markNow(client, id, lock);
-    if (mark === undefined) throw new TrueshiftError('MARK_NOT_FOUND', `Mark ${id}.`);
-    return mark;
+  private async requireMark(client: pg.ClientBase, id: string): Promise<MarkRecord> {
+    return existingMark(await this.markNow(client, id), id);
   }
 
   /** The mark, locked to the commit, so concurrent corrections take turns and count revisions. */
   private async changeableMark(client: pg.ClientBase, id: string): Promise<MarkRecord> {
-    const mark = await this.requireMark(client, id, true);
-    if (mark.withdrawnAt !== null) {
-      throw new TrueshiftError(
-        'MARK_WITHDRAWN',
-        `Mark ${id} was withdrawn at ${describeTime(mark.withdrawnAt)}.`,
-      );
-    }
-    return mark;
+    return changeableMark(await this.markNow(client, id, true), id);
   }
 
   private async writeMarkTags(
@@ -1463,14 +1420,7 @@ export class PostgresStore implements ClusterStore {
   }
 
   private async changeableAlert(client: pg.ClientBase, id: number): Promise<AlertRecord> {
-    const alert = await this.alertNow(client, id, true);
-    if (alert.state === 'cleared') {
-      throw new TrueshiftError(
-        'ALERT_CLEARED',
-        `Alert ${id} was cleared at ${describeTime(alert.clearedAt ?? alert.updatedAt)}.`,
-      );
-    }
-    return alert;
+    return changeableAlert(await this.alertNow(client, id, true));
   }
 
   /**

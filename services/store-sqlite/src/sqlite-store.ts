@@ -4,19 +4,25 @@ import { TrueshiftError } from '@trueshift/errors';
 import {
   alertFromRow,
   announcements,
+  changeableAlert,
+  changeableMark,
+  checkLimit,
+  checkTagNames,
+  existingMark,
+  upsertedTagRecord,
   analyserStateFromRow,
   checkMarkTags,
   checkSample,
   conflictReason,
   correctedMarkRecord,
   cutUtf8,
-  describeTime,
   evidenceFromRow,
   markFromRow,
+  markRevisionFromRow,
   newMarkRecord,
   outboxFromRow,
   parseJson,
-  pick,
+  quarantineFromRow,
   QUALITY_GOOD,
   SampleColumnsBuilder,
   tagFromRow,
@@ -25,6 +31,7 @@ import {
 } from '@trueshift/store';
 import type {
   AlertRow,
+  QuarantineColumns,
   AnalyserStateRow,
   EvidenceRow,
   MarkColumns,
@@ -78,14 +85,8 @@ const READ_PAGE = 8192;
 type SampleRow = [t: number, value: number | null, quality: number];
 type StoredSampleRow = [seq: number, tag: string, t: number, value: number | null, quality: number];
 
-interface QuarantineRow {
-  id: number;
-  source: string;
+interface QuarantineRow extends QuarantineColumns {
   raw: string;
-  reason: string;
-  code: string;
-  tag: string | null;
-  received_at: number;
 }
 
 /** Its tags gathered into one JSON array by MARK_SELECT. */
@@ -100,12 +101,9 @@ const MARK_SELECT = `
       WHERE mt.mark_id = m.id) AS tags
   FROM marks m`;
 
+/** A limit for SQLite: -1 is no limit. */
 function limitOf(limit: number | undefined, what: string): number {
-  if (limit === undefined) return -1;
-  if (!Number.isSafeInteger(limit) || limit < 0) {
-    throw new TrueshiftError('INVALID_ARGUMENT', `${what}: limit must be a whole number >= 0.`);
-  }
-  return limit;
+  return checkLimit(limit, what) ?? -1;
 }
 
 /** Appends a page of rows to the columns being gathered. */
@@ -178,23 +176,11 @@ export class SqliteStore implements Store {
 
   upsertTag(tag: TagInput, now: number): Promise<TagRecord> {
     return this.call(() => {
-      if (tag.name.length === 0) {
-        throw new TrueshiftError('INVALID_ARGUMENT', 'A tag needs a name.');
-      }
+      checkTagNames([tag.name]);
       return this.write(() => {
         const existingRow = this.tagRow(tag.name);
         const existing = existingRow === undefined ? undefined : tagFromRow(existingRow);
-        const record: TagRecord = {
-          name: tag.name,
-          unit: pick(tag.unit, existing?.unit ?? null),
-          description: pick(tag.description, existing?.description ?? null),
-          better: tag.better ?? existing?.better ?? 'either',
-          validMin: pick(tag.validMin, existing?.validMin ?? null),
-          validMax: pick(tag.validMax, existing?.validMax ?? null),
-          settings: tag.settings ?? existing?.settings ?? {},
-          createdAt: existing?.createdAt ?? now,
-          updatedAt: now,
-        };
+        const record = upsertedTagRecord(tag, existing, now);
         this.stmt(
           `INSERT INTO tags (name, unit, description, better, valid_min, valid_max, settings,
                              created_at, updated_at)
@@ -221,9 +207,7 @@ export class SqliteStore implements Store {
 
   ensureTags(names: readonly string[], now: number): Promise<void> {
     return this.call(() => {
-      if (names.some((name) => name.length === 0)) {
-        throw new TrueshiftError('INVALID_ARGUMENT', 'A tag needs a name.');
-      }
+      checkTagNames(names);
       this.write(() => {
         for (const name of names) this.tagId(name, now);
       });
@@ -398,15 +382,7 @@ export class SqliteStore implements Store {
         { 'id < ?': options.beforeId, 'source = ?': options.source },
         options.limit,
         'listQuarantine',
-      ).map((row) => ({
-        id: row.id,
-        source: row.source,
-        raw: row.raw,
-        reason: row.reason,
-        code: row.code as QuarantineEntry['code'],
-        tag: row.tag,
-        receivedAt: row.received_at,
-      })),
+      ).map((row) => quarantineFromRow(row, row.raw)),
     );
   }
 
@@ -535,15 +511,7 @@ export class SqliteStore implements Store {
     return this.call(() =>
       this.stmt<MarkRevisionRow>('SELECT * FROM mark_revisions WHERE mark_id = ? ORDER BY revision')
         .all(id)
-        .map((row) => ({
-          markId: row.mark_id,
-          revision: row.revision,
-          changedAt: row.changed_at,
-          changedBy: row.changed_by,
-          action: row.action as MarkRevision['action'],
-          reason: row.reason,
-          mark: parseJson(row.mark) as MarkRecord,
-        })),
+        .map(markRevisionFromRow),
     );
   }
 
@@ -970,20 +938,11 @@ export class SqliteStore implements Store {
   }
 
   private requireMark(id: string): MarkRecord {
-    const mark = this.markNow(id);
-    if (mark === undefined) throw new TrueshiftError('MARK_NOT_FOUND', `Mark ${id}.`);
-    return mark;
+    return existingMark(this.markNow(id), id);
   }
 
   private changeableMark(id: string): MarkRecord {
-    const mark = this.requireMark(id);
-    if (mark.withdrawnAt !== null) {
-      throw new TrueshiftError(
-        'MARK_WITHDRAWN',
-        `Mark ${id} was withdrawn at ${describeTime(mark.withdrawnAt)}.`,
-      );
-    }
-    return mark;
+    return changeableMark(this.markNow(id), id);
   }
 
   private writeMarkTags(mark: MarkRecord, now: number): void {
@@ -1013,14 +972,7 @@ export class SqliteStore implements Store {
   }
 
   private changeableAlert(id: number): AlertRecord {
-    const alert = this.alertNow(id);
-    if (alert.state === 'cleared') {
-      throw new TrueshiftError(
-        'ALERT_CLEARED',
-        `Alert ${id} was cleared at ${describeTime(alert.clearedAt ?? alert.updatedAt)}.`,
-      );
-    }
-    return alert;
+    return changeableAlert(this.alertNow(id));
   }
 
   /** Queues the change for every target in the caller's transaction: saved together or not at all. */
