@@ -10,7 +10,6 @@
 import { mkdir, mkdtemp, rm } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { setTimeout as sleep } from 'node:timers/promises';
 import { connectAsync } from 'mqtt';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { seededRandom } from '@trueshift/stats';
@@ -26,6 +25,8 @@ import { serviceProcess } from './helpers/service-process.js';
 import type { ServiceProcess } from './helpers/service-process.js';
 import { openSse } from './helpers/sse.js';
 import type { SseClient } from './helpers/sse.js';
+import { publishSteadily, seedMarkedTags } from './helpers/marked-stream.js';
+import type { Published } from './helpers/marked-stream.js';
 import { waitFor } from './helpers/store-faults.js';
 import { startReceiver } from './helpers/webhook-receiver.js';
 import type { WebhookReceiver } from './helpers/webhook-receiver.js';
@@ -38,12 +39,6 @@ const PER_LOAD_TAG = 120;
 const HISTORY = 150;
 const AFTER = 30;
 const STEP = 1000;
-
-interface Published {
-  tag: string;
-  t: number;
-  value: number;
-}
 
 let db: TestDatabase | undefined;
 let broker: Mosquitto | undefined;
@@ -97,24 +92,16 @@ describe('three instances on one PostgreSQL database', () => {
     // The schema, the shift tags' history and the mark are in place before any instance starts.
     const seed = await openPostgresStore({ url, shards: SHARDS, instance: 'test-seed' });
     observer = seed;
-    for (const name of SHIFT_TAGS) {
-      await seed.upsertTag({ name, settings: { kind: 'batch', inControlArl: 1e7 } }, Date.now());
-      await seed.writeSamples(
-        Array.from({ length: HISTORY }, (_, i) => ({
-          tag: name,
-          t: start + i * STEP,
-          value: 4.1 + 0.05 * rng.normal(),
-          quality: 192,
-          source: 'test:history',
-          receivedAt: Date.now(),
-        })),
-      );
-    }
-    const mark = await seed.createMark(
-      { tags: SHIFT_TAGS, at: markAt, label: 'new classifier vanes', direction: 'rise' },
-      'test',
-      Date.now(),
-    );
+    const mark = await seedMarkedTags(seed, {
+      tags: SHIFT_TAGS,
+      start,
+      step: STEP,
+      history: HISTORY,
+      level: 4.1,
+      noise: 0.05,
+      rng,
+      label: 'new classifier vanes',
+    });
 
     for (const name of NAMES) {
       const work = join(dir, name);
@@ -176,23 +163,7 @@ describe('three instances on one PostgreSQL database', () => {
       clientId: 'cluster-publisher',
       protocolVersion: 5,
     });
-    const publishing = (async () => {
-      for (let i = 0; i < total; i += 50) {
-        await Promise.all(
-          messages
-            .slice(i, i + 50)
-            .map((m) =>
-              publisher.publishAsync(
-                `trueshift/samples/${m.tag}`,
-                JSON.stringify({ value: m.value, time: m.t }),
-                { qos: 1 },
-              ),
-            ),
-        );
-        // A steady stream, so the kill lands in the middle of it.
-        await sleep(20);
-      }
-    })();
+    const publishing = publishSteadily(publisher, messages, { chunk: 50, pauseMs: 20 });
 
     const stored = (): Promise<number> => seed.countSamples();
     const seeded = HISTORY * SHIFT_TAGS.length;

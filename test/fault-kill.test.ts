@@ -7,7 +7,6 @@
 import { mkdtemp, rm } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
-import { setTimeout as sleep } from 'node:timers/promises';
 import { connectAsync } from 'mqtt';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { seededRandom } from '@trueshift/stats';
@@ -17,6 +16,8 @@ import { startMosquitto } from './helpers/mosquitto.js';
 import type { Mosquitto } from './helpers/mosquitto.js';
 import { serviceProcess } from './helpers/service-process.js';
 import type { ServiceProcess } from './helpers/service-process.js';
+import { publishSteadily, seedMarkedTags } from './helpers/marked-stream.js';
+import type { Published } from './helpers/marked-stream.js';
 import { waitFor } from './helpers/store-faults.js';
 import { startReceiver } from './helpers/webhook-receiver.js';
 import type { WebhookReceiver } from './helpers/webhook-receiver.js';
@@ -39,12 +40,6 @@ function credibleOpenings(receiver: WebhookReceiver): WebhookReceiver['requests'
     const body = JSON.parse(r.body) as Delivered;
     return body.change === 'opened' && body.alert?.kind === 'credible-shift';
   });
-}
-
-interface Published {
-  tag: string;
-  t: number;
-  value: number;
 }
 
 let broker: Mosquitto | undefined;
@@ -92,25 +87,16 @@ describe('the service killed mid-stream', () => {
     const rng = seededRandom(9);
 
     const seed = openSqliteStore({ path: storePath });
-    await seed.upsertTag(
-      { name: SHIFT_TAG, settings: { kind: 'batch', inControlArl: 1e7 } },
-      Date.now(),
-    );
-    await seed.writeSamples(
-      Array.from({ length: HISTORY }, (_, i) => ({
-        tag: SHIFT_TAG,
-        t: start + i * STEP,
-        value: 2.4 + 0.05 * rng.normal(),
-        quality: 192,
-        source: 'test:history',
-        receivedAt: Date.now(),
-      })),
-    );
-    const mark = await seed.createMark(
-      { tags: [SHIFT_TAG], at: markAt, label: 'new catalyst', direction: 'rise' },
-      'test',
-      Date.now(),
-    );
+    const mark = await seedMarkedTags(seed, {
+      tags: [SHIFT_TAG],
+      start,
+      step: STEP,
+      history: HISTORY,
+      level: 2.4,
+      noise: 0.05,
+      rng,
+      label: 'new catalyst',
+    });
     await seed.close();
 
     running = service;
@@ -131,24 +117,11 @@ describe('the service killed mid-stream', () => {
       protocolVersion: 5,
     });
     let published = 0;
-    const publishing = (async () => {
-      for (let i = 0; i < total; i += 100) {
-        await Promise.all(
-          messages
-            .slice(i, i + 100)
-            .map((m) =>
-              publisher.publishAsync(
-                `trueshift/samples/${m.tag}`,
-                JSON.stringify({ value: m.value, time: m.t }),
-                { qos: 1 },
-              ),
-            ),
-        );
-        published = Math.min(total, i + 100);
-        // A steady stream rather than one burst, so the kill lands in the middle of it.
-        await sleep(15);
-      }
-    })();
+    const publishing = publishSteadily(publisher, messages, {
+      chunk: 100,
+      pauseMs: 15,
+      onProgress: (n) => (published = n),
+    });
 
     await waitFor(
       async () => (await stored()) >= HISTORY + total / 4,
