@@ -4,6 +4,7 @@
  * reads it field by field so a figure or a table row can say "not known" instead of crashing.
  */
 
+import { isVerdict } from '@trueshift/stats';
 import type { Verdict } from '@trueshift/stats';
 
 export type DirectionText = 'rise' | 'fall' | 'either';
@@ -100,19 +101,6 @@ function num(obj: Json, key: string): number | null {
 function text(obj: Json, key: string): string | null {
   const value = obj[key];
   return typeof value === 'string' ? value : null;
-}
-
-const VERDICTS: readonly Verdict[] = [
-  'not-enough-history',
-  'still-gathering',
-  'credible-rise',
-  'credible-fall',
-  'credible-but-small',
-  'no-credible-shift',
-];
-
-export function isVerdict(value: unknown): value is Verdict {
-  return typeof value === 'string' && (VERDICTS as readonly string[]).includes(value);
 }
 
 function direction(value: unknown): DirectionText {

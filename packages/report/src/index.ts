@@ -1,6 +1,6 @@
 export { buildFigures, referenceFigure, questionOf, verdictTitle, MAX_DOTS } from './figures.js';
 export type { FigureInput, Figures, MeanSegment, ReferenceFigure } from './figures.js';
-export { readEvidence, isVerdict } from './evidence-view.js';
+export { readEvidence } from './evidence-view.js';
 export type { EvidenceView, ProjectionView, WelchView, WindowView } from './evidence-view.js';
 export { overviewRows, evidenceKey, TAG_STATE_TEXT, TAG_STATE_RANK } from './overview.js';
 export type {

@@ -4,8 +4,8 @@
  * wants someone, then credible shifts, marks still gathering evidence, and quiet watching.
  */
 
+import { isVerdict } from '@trueshift/stats';
 import type { Verdict } from '@trueshift/stats';
-import { isVerdict } from './evidence-view.js';
 import { formatPercent } from './format.js';
 import { verdictTitle } from './figures.js';
 

@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { computeEvidence, defaultBeforeWindow } from './evidence.js';
+import { computeEvidence, defaultBeforeWindow, isVerdict } from './evidence.js';
 import { ar1Series, seededRandom } from './random.js';
 
 function shifted(x: Float64Array, by: number): Float64Array {
@@ -127,5 +127,15 @@ describe('defaultBeforeWindow', () => {
     expect(defaultBeforeWindow(1000, 40, 0.05)).toBe(40);
     // 60 history samples and 30 after: M = 60 − n_A − 30 + 1 must stay at least 20.
     expect(defaultBeforeWindow(60, 30, 0.05)).toBe(11);
+  });
+});
+
+describe('isVerdict', () => {
+  it('knows every verdict and nothing else', () => {
+    expect(isVerdict('credible-fall')).toBe(true);
+    expect(isVerdict('no-credible-shift')).toBe(true);
+    expect(isVerdict('credible')).toBe(false);
+    expect(isVerdict('toString')).toBe(false);
+    expect(isVerdict(3)).toBe(false);
   });
 });

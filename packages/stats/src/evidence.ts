@@ -29,6 +29,21 @@ export type Verdict =
   | 'credible-but-small'
   | 'no-credible-shift';
 
+/** Every verdict there is, keyed so that a new one fails to compile until it is listed here. */
+const VERDICTS: Record<Verdict, true> = {
+  'not-enough-history': true,
+  'still-gathering': true,
+  'credible-rise': true,
+  'credible-fall': true,
+  'credible-but-small': true,
+  'no-credible-shift': true,
+};
+
+/** Whether a stored or received text is one of the verdicts. */
+export function isVerdict(value: unknown): value is Verdict {
+  return typeof value === 'string' && Object.hasOwn(VERDICTS, value);
+}
+
 export interface EvidenceInput {
   /** In-control samples before the change, oldest first. */
   history: ArrayLike<number>;

@@ -36,7 +36,13 @@ export type { CusumSettings, CusumState, CusumSide, CusumChange } from './cusum.
 export { createEwma, ewmaUpdate, ewmaSignal, ewmaAsymptoticLimits } from './ewma.js';
 export type { EwmaSettings, EwmaState } from './ewma.js';
 export { cusumArl, ewmaArl, solveCusumH, solveEwmaL } from './arl.js';
-export { computeEvidence, defaultBeforeWindow, DEFAULT_CUSUM, DEFAULT_EWMA } from './evidence.js';
+export {
+  computeEvidence,
+  defaultBeforeWindow,
+  DEFAULT_CUSUM,
+  DEFAULT_EWMA,
+  isVerdict,
+} from './evidence.js';
 export type {
   Evidence,
   EvidenceInput,

@@ -11,7 +11,7 @@
  */
 import { EventEmitter } from 'node:events';
 import type { Analyser, EvidenceUpdate } from '@trueshift/analyser-service';
-import type { Verdict } from '@trueshift/stats';
+import { isVerdict } from '@trueshift/stats';
 import { fairShare } from '@trueshift/store';
 import type {
   AlertChange,
@@ -82,17 +82,6 @@ interface Held {
   /** Set once the analyser said it lost the lease: it has stopped by itself. */
   lost: boolean;
 }
-
-/** Every verdict there is, keyed so that a new one in @trueshift/stats fails to compile here. */
-const VERDICTS: Record<Verdict, true> = {
-  'not-enough-history': true,
-  'still-gathering': true,
-  'credible-rise': true,
-  'credible-fall': true,
-  'credible-but-small': true,
-  'no-credible-shift': true,
-};
-const isVerdict = (text: string): text is Verdict => Object.hasOwn(VERDICTS, text);
 
 export function buildCluster(deps: ClusterDeps): Cluster {
   const { store, log, clock, timers, options } = deps;
