@@ -477,3 +477,29 @@ export function quarantineFromRow(row: QuarantineColumns, raw: string): Quaranti
     receivedAt: row.received_at,
   };
 }
+
+/** One numbered step of a SQL backend's schema. */
+export interface Migration {
+  version: number;
+  name: string;
+  sql: string;
+}
+
+/**
+ * The steps a schema at version `current` still needs, in order. A schema newer than every step
+ * known (written by a newer build) is refused rather than used half-understood.
+ */
+export function pendingMigrations(
+  steps: readonly Migration[],
+  current: number,
+  what: string,
+): Migration[] {
+  const newest = steps.reduce((max, step) => Math.max(max, step.version), 0);
+  if (current > newest) {
+    throw new TrueshiftError(
+      'INTERNAL',
+      `${what} has schema version ${current}; this build knows up to ${newest}. Use a newer trueshift.`,
+    );
+  }
+  return steps.filter((step) => step.version > current).sort((a, b) => a.version - b.version);
+}

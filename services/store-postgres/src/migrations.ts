@@ -1,11 +1,7 @@
 import type pg from 'pg';
 import { TrueshiftError } from '@trueshift/errors';
-
-export interface Migration {
-  version: number;
-  name: string;
-  sql: string;
-}
+import { pendingMigrations } from '@trueshift/store';
+import type { Migration } from '@trueshift/store';
 
 /**
  * The schema, one numbered step at a time. A step, once released, never changes: the database
@@ -238,16 +234,8 @@ export async function applyMigrations(
       'SELECT max(version) AS v FROM schema_migrations',
     );
     const current = currentRow.rows[0]?.v ?? 0;
-    const newest = steps.reduce((max, step) => Math.max(max, step.version), 0);
-    if (current > newest) {
-      throw new TrueshiftError(
-        'INTERNAL',
-        `The database schema "${schema}" has version ${current}; this build knows up to ${newest}. Use a newer trueshift.`,
-      );
-    }
     const applied: number[] = [];
-    for (const step of [...steps].sort((a, b) => a.version - b.version)) {
-      if (step.version <= current) continue;
+    for (const step of pendingMigrations(steps, current, `The database schema "${schema}"`)) {
       await client.query(step.sql);
       // Bookkeeping for whoever inspects the database, not a record time: the wall clock is fine.
       await client.query(

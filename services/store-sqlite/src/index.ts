@@ -1,4 +1,3 @@
 export { openSqliteStore, SqliteStore } from './sqlite-store.js';
 export type { SqliteStoreOptions } from './sqlite-store.js';
 export { applyMigrations, migrations } from './migrations.js';
-export type { Migration } from './migrations.js';

@@ -1,11 +1,6 @@
 import type Database from 'better-sqlite3';
-import { TrueshiftError } from '@trueshift/errors';
-
-export interface Migration {
-  version: number;
-  name: string;
-  sql: string;
-}
+import { pendingMigrations } from '@trueshift/store';
+import type { Migration } from '@trueshift/store';
 
 /**
  * The schema, one numbered step at a time. A step, once released, never changes: a store file
@@ -191,19 +186,11 @@ export function applyMigrations(
     const current =
       db.prepare<[], number | null>('SELECT max(version) FROM schema_migrations').pluck().get() ??
       0;
-    const newest = steps.reduce((max, step) => Math.max(max, step.version), 0);
-    if (current > newest) {
-      throw new TrueshiftError(
-        'INTERNAL',
-        `The store file has schema version ${current}; this build knows up to ${newest}. Use a newer trueshift.`,
-      );
-    }
     const record = db.prepare<[number, string, number]>(
       'INSERT INTO schema_migrations (version, name, applied_at) VALUES (?, ?, ?)',
     );
     const applied: number[] = [];
-    for (const step of [...steps].sort((a, b) => a.version - b.version)) {
-      if (step.version <= current) continue;
+    for (const step of pendingMigrations(steps, current, 'The store file')) {
       db.exec(step.sql);
       // Bookkeeping for whoever inspects the file, not a record time, so the wall clock is fine.
       record.run(step.version, step.name, Date.now());
