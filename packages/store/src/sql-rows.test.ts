@@ -1,5 +1,5 @@
 import { describe, expect, it } from 'vitest';
-import { conflictReason, cutUtf8, markFromRow } from './sql-rows.js';
+import { conflictReason, cutUtf8, markFromRow, pendingMigrations } from './sql-rows.js';
 
 describe('what the SQL backends share', () => {
   it('cuts text to a UTF-8 byte budget without splitting a character', () => {
@@ -49,5 +49,19 @@ describe('what the SQL backends share', () => {
       ['kiln/fuel', 'kiln/temp'],
     );
     expect(mark).toMatchObject({ id: 'm1', tags: ['kiln/fuel', 'kiln/temp'], nBefore: 30 });
+  });
+
+  it('gives the schema steps still to apply in order, and refuses a schema newer than the build', () => {
+    const steps = [
+      { version: 2, name: 'two', sql: 'B' },
+      { version: 1, name: 'one', sql: 'A' },
+      { version: 3, name: 'three', sql: 'C' },
+    ];
+    expect(pendingMigrations(steps, 0, 'The store').map((s) => s.version)).toEqual([1, 2, 3]);
+    expect(pendingMigrations(steps, 2, 'The store').map((s) => s.version)).toEqual([3]);
+    expect(pendingMigrations(steps, 3, 'The store')).toEqual([]);
+    expect(() => pendingMigrations(steps, 4, 'The store')).toThrow(
+      'The store has schema version 4; this build knows up to 3. Use a newer trueshift.',
+    );
   });
 });
